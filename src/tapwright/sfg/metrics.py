@@ -1,0 +1,137 @@
+"""Graph metrics for the cost model: operators by width, registers, paths, latency.
+
+Registers are counted as the RTL lowering builds them:
+
+- ``z`` delays share one delay line per source node: ``max z`` words of the
+  source's width (fan-out taps read the same line);
+- ``pipe`` registers share a chain per (source, z tap): ``max pipe`` words;
+- a time-shared graph adds the capture register of each delay line read by
+  a multiplexer (the line holds x[n]..x[n-k] after the strobe), one
+  accumulator register per ``acc`` and the schedule counter.
+"""
+from __future__ import annotations
+
+import math
+from collections import defaultdict
+from dataclasses import dataclass, field
+
+from ..fixed.formats import bits_for_range
+from .graph import operands
+from .transforms.pipeline import critical_path, latency, unit_delays
+
+
+def is_free_coeff(c: int) -> bool:
+    """Products by zero or a power of two (either sign) are wiring: no multiplier."""
+    c = abs(int(c))
+    return c == 0 or (c & (c - 1)) == 0
+
+
+@dataclass
+class Metrics:
+    mults: list = field(default_factory=list)      # (a_bits operand, b_bits coefficient, node)
+    adders: list = field(default_factory=list)     # (width, role, node)
+    muxes: list = field(default_factory=list)      # (width, inputs, node)
+    tables: list = field(default_factory=list)     # (entries, width) coefficient tables
+    reg_bits: int = 0
+    reg_words: int = 0
+    delay_elements: int = 0
+    pipe_bits: int = 0
+    zreg_bits: int = 0
+    acc_bits: int = 0
+    counter_bits: int = 0
+    round_adders: list = field(default_factory=list)  # (width,) rounding/saturation logic
+    critical_path: float = 0.0
+    latency: int = 0
+    fold: int = 1
+
+    @property
+    def n_mults(self) -> int:
+        return len(self.mults)
+
+    def as_dict(self) -> dict:
+        return {
+            "mult": [{"a": a, "b": b} for a, b, _ in self.mults],
+            "add": [{"bits": w, "role": r} for w, r, _ in self.adders],
+            "mux": [{"bits": w, "inputs": n} for w, n, _ in self.muxes],
+            "ff": self.reg_bits,
+            "delay_elements": self.delay_elements,
+            "critical_path": self.critical_path,
+            "latency": self.latency,
+        }
+
+
+def _coeff_bits(n) -> int:
+    if n.get("table") is not None:
+        vals = [int(c) for c in n["table"]]
+        return bits_for_range(min(vals + [0]), max(vals + [0]))
+    c = int(n["coeff"])
+    return bits_for_range(min(c, 0), max(c, 0))
+
+
+def measure(g, delays=unit_delays) -> Metrics:
+    m = Metrics()
+    m.fold = int(g.graph.get("fold", 1))
+    for v, n in g.nodes(data=True):
+        k = n["kind"]
+        if k == "mul":
+            if n.get("table") is None and is_free_coeff(n["coeff"]):
+                continue
+            (u, _), = operands(g, v)
+            m.mults.append((g.nodes[u]["fmt"].bits, _coeff_bits(n), v))
+        elif k == "add":
+            ops = operands(g, v)
+            if len(ops) == 1:
+                (_, e), = ops
+                if e["sign"] == 1:
+                    continue  # wire
+                # a lone negation: one adder-width of logic
+            w = n["fmt"].bits
+            # an n-input adder is n-1 two-input adders
+            for _ in range(max(1, len(ops) - 1)):
+                m.adders.append((w, n.get("role", "tree"), v))
+        elif k == "mux":
+            m.muxes.append((n["fmt"].bits, int(n.get("ports", g.in_degree(v))), v))
+        elif k == "acc":
+            w = n["fmt"].bits
+            m.adders.append((w, "acc", v))
+            m.acc_bits += w
+        elif k == "quant":
+            (u, _), = operands(g, v)
+            shift = g.nodes[u]["fmt"].frac - n["fmt"].frac
+            if shift > 0 and n["rounding"] != "truncate":
+                m.round_adders.append(g.nodes[u]["fmt"].bits - shift + 1)
+    for v, n in g.nodes(data=True):
+        if n["kind"] == "mul" and n.get("table") is not None:
+            m.tables.append((len(n["table"]), _coeff_bits(n)))
+    # registers
+    zmax = defaultdict(int)
+    pmax = defaultdict(int)
+    captured = set()
+    for u, v, e in g.edges(data=True):
+        if e["z"]:
+            zmax[u] = max(zmax[u], e["z"])
+        if e["pipe"]:
+            pmax[u, e["z"]] = max(pmax[u, e["z"]], e["pipe"])
+        if g.nodes[v]["kind"] == "mux":
+            captured.add(u)
+    for u, z in zmax.items():
+        w = g.nodes[u]["fmt"].bits
+        extra = 1 if u in captured else 0
+        m.zreg_bits += (z + extra) * w
+        m.delay_elements += z + extra
+    for u in captured:
+        if u not in zmax:
+            m.zreg_bits += g.nodes[u]["fmt"].bits
+            m.delay_elements += 1
+    for (u, _), p in pmax.items():
+        m.pipe_bits += p * g.nodes[u]["fmt"].bits
+    m.latency = latency(g)
+    if m.fold > 1:
+        m.counter_bits = max(1, math.ceil(math.log2(m.fold + 1)))
+    # one phase counter per stage and rate change, plus the valid bits of the pipeline
+    ctrs = {(n.get("stage"), n["factor"]) for _, n in g.nodes(data=True) if n["kind"] == "decim"}
+    m.counter_bits += sum(max(1, math.ceil(math.log2(f))) for _, f in ctrs)
+    m.reg_bits = m.zreg_bits + m.pipe_bits + m.acc_bits + m.counter_bits + m.latency
+    m.reg_words = len(zmax) + len(pmax)
+    m.critical_path = critical_path(g, delays)
+    return m

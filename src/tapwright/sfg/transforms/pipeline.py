@@ -1,0 +1,326 @@
+"""Timing transforms: cutset pipelining, Leiserson-Saxe retiming, iteration bound.
+
+Two kinds of register live on edges:
+
+- ``z``: algorithmic delays (the filter's state). They advance when a sample
+  arrives (the strobe of their rate) and so hold across gaps in the input.
+- ``pipe``: pipeline registers. They advance every clock cycle and carry a
+  valid bit; a node's *stage* is the number of pipeline registers between the
+  input and it, and the output's stage is the latency in cycles.
+
+A combinational path is a path whose edges carry neither. Every node has a
+delay ``t`` (ns) from the device's delay table; the critical path is the
+longest combinational path.
+
+:func:`pipeline` inserts ``pipe`` registers on feed-forward cutsets so that no
+combinational path exceeds a target period: nodes are placed, in dependency
+order, at the earliest stage whose arrival time fits (as soon as possible).
+Loops (biquads, CIC integrators) stay in one stage, since a pipeline register
+inside a loop would change the recursion; their loop delay is the floor set by
+the iteration bound.
+
+:func:`retime` is the Leiserson-Saxe method (C. E. Leiserson and J. B. Saxe,
+"Retiming synchronous circuitry", Algorithmica 6:5-35, 1991): the W and D
+matrices from all-pairs shortest paths, then for a candidate period c the
+difference constraints r(u) - r(v) <= w(e) on every edge and
+r(u) - r(v) <= W(u,v) - 1 wherever D(u,v) > c, solved as shortest paths
+(Bellman-Ford) on the constraint graph; binary search over the D values gives
+the smallest feasible period.
+
+:func:`iteration_bound` is the largest loop bound max over loops of
+(loop computation time / loop delays): no retiming or pipelining reaches a
+shorter clock period at one sample per cycle (K. K. Parhi, VLSI Digital Signal
+Processing Systems, Wiley 1999, ch. 2).
+"""
+from __future__ import annotations
+
+import math
+
+import networkx as nx
+
+from ..graph import copy_graph, eval_order
+
+
+def node_delay(g, v, delays) -> float:
+    d = g.nodes[v]
+    if "t" in d:
+        return float(d["t"])
+    return float(delays(g, v)) if delays else 1.0
+
+
+def unit_delays(g, v) -> float:
+    """One unit per multiply, adder, rounding or multiplexer; wiring is free."""
+    d = g.nodes[v]
+    k = d["kind"]
+    if k == "mul":
+        c = d.get("coeff")
+        if d.get("table") is None and (c == 0 or (c is not None and abs(c) & (abs(c) - 1) == 0)):
+            return 0.0
+        return 2.0
+    if k == "add":
+        if g.in_degree(v) <= 1 and all(e["sign"] == 1 for _, _, e in g.in_edges(v, data=True)):
+            return 0.0
+        return 1.0
+    if k in ("quant", "mux"):
+        return 1.0
+    if k == "acc":
+        return 1.0
+    return 0.0
+
+
+def _reg(e) -> bool:
+    return e["z"] > 0 or e["pipe"] > 0
+
+
+def arrival_times(g, delays=unit_delays) -> dict:
+    """Arrival time of every node along combinational paths (registers reset to 0)."""
+    h = nx.DiGraph()
+    h.add_nodes_from(g.nodes)
+    for u, v, e in g.edges(data=True):
+        if not _reg(e) and g.nodes[u]["kind"] != "acc":
+            h.add_edge(u, v)
+    if not nx.is_directed_acyclic_graph(h):
+        raise ValueError("combinational loop")
+    arr = {}
+    for v in nx.topological_sort(h):
+        t0 = max((arr[u] for u in h.predecessors(v)), default=0.0)
+        arr[v] = t0 + node_delay(g, v, delays)
+    return arr
+
+
+def critical_path(g, delays=unit_delays) -> float:
+    arr = arrival_times(g, delays)
+    return max(arr.values(), default=0.0)
+
+
+def stages(g) -> dict:
+    """Pipeline stage of every node (pipe registers from the input)."""
+    st = {}
+    for v in _topo_all(g):
+        preds = [(u, e) for u, _, e in g.in_edges(v, data=True)]
+        if not preds:
+            st[v] = 0
+            continue
+        vals = {st[u] + e["pipe"] for u, e in preds if u in st}
+        st[v] = max(vals) if vals else 0
+        if g.nodes[v]["kind"] == "acc":
+            # a time-shared accumulator: steps 0..K-1 run in the K cycles after
+            # the strobe's capture edge; the full sum is visible K+1 cycles on
+            st[v] += int(g.nodes[v]["steps"]) + 1
+    return st
+
+
+def _topo_all(g):
+    """Order for stage propagation: loops condensed (they hold one stage)."""
+    dg = nx.DiGraph(g)
+    cond = nx.condensation(dg)
+    comps = {}
+    for v, c in cond.graph["mapping"].items():
+        comps.setdefault(c, []).append(v)
+    out = []
+    for c in nx.lexicographical_topological_sort(cond, key=lambda c: min(map(str, comps[c]))):
+        members = comps[c]
+        if len(members) > 1:
+            sub = nx.DiGraph()
+            sub.add_nodes_from(members)
+            sub.add_edges_from((u, v) for u, v, e in g.edges(data=True)
+                               if u in members and v in members and e["z"] == 0)
+            out.extend(nx.lexicographical_topological_sort(sub, key=str))
+        else:
+            out.extend(members)
+    return out
+
+
+def latency(g) -> int:
+    from ..graph import output_node
+    return stages(g)[output_node(g)]
+
+
+def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = True):
+    """Cutset pipelining to ``period`` (as soon as possible); returns a new graph.
+
+    With ``register_output`` the output gets a register of its own (one more
+    cycle of latency, and a clean registered ``out_data``).
+    """
+    h = copy_graph(g)
+    for _, _, e in h.edges(data=True):
+        e["pipe"] = 0
+    dg = nx.DiGraph(h)
+    cond = nx.condensation(dg)
+    mapping = cond.graph["mapping"]
+    comps = {}
+    for v, c in mapping.items():
+        comps.setdefault(c, []).append(v)
+    stage, arr = {}, {}
+    for c in nx.lexicographical_topological_sort(cond, key=lambda c: min(map(str, comps[c]))):
+        members = comps[c]
+        ext = [(u, v, e) for v in members for u, _, e in h.in_edges(v, data=True) if u not in members]
+        s0 = max((stage[u] for u, _, _ in ext), default=0)
+        if len(members) == 1 and not dg.has_edge(members[0], members[0]):
+            v = members[0]
+            t = node_delay(h, v, delays)
+            a_in = max((arr[u] for u, _, e in ext if stage[u] == s0 and e["z"] == 0), default=0.0)
+            kind = h.nodes[v]["kind"]
+            if kind == "acc":
+                s0 += int(h.nodes[v]["steps"]) + 1
+                stage[v], arr[v] = s0, 0.0
+                continue
+            if a_in + t > period and t > 0 and a_in > 0 and kind != "output":
+                s0 += 1
+                a_in = 0.0
+            if kind == "output" and register_output:
+                s0 += 1
+                a_in, t = 0.0, 0.0
+            stage[v], arr[v] = s0, a_in + t
+        else:
+            # a loop: one stage; arrival inside along its zero-delay edges
+            sub = nx.DiGraph()
+            sub.add_nodes_from(members)
+            sub.add_edges_from((u, v) for u, v, e in h.edges(data=True)
+                               if u in members and v in members and e["z"] == 0)
+            ain = {}
+            for v in nx.lexicographical_topological_sort(sub, key=str):
+                a = max((arr[u] for u, _, e in h.in_edges(v, data=True)
+                         if u not in members and stage[u] == s0 and e["z"] == 0), default=0.0)
+                a = max([a] + [ain[u] for u in sub.predecessors(v)])
+                ain[v] = a + node_delay(h, v, delays)
+            if max(ain.values()) > period and any(
+                    stage[u] == s0 and arr[u] > 0 for u, _, e in ext if e["z"] == 0):
+                s0 += 1
+                ain = {v: a - max((arr[u] for u, _, e in ext if e["z"] == 0 and stage[u] == s0 - 1),
+                                  default=0.0) for v, a in ain.items()}
+            for v in members:
+                stage[v], arr[v] = s0, ain[v]
+    for u, v, e in h.edges(data=True):
+        base = stage[u]
+        if h.nodes[v]["kind"] == "acc":
+            base += int(h.nodes[v]["steps"]) + 1
+        e["pipe"] = stage[v] - base if stage[v] >= base else 0
+        if stage[v] < base:
+            raise ValueError(f"stage order broken on {u}->{v}")
+    h.graph["pipeline_period"] = period
+    return h
+
+
+# ------------------------------------------------------------------------------------------------
+# Leiserson-Saxe
+
+
+def _wd_matrices(g, delays):
+    """W(u,v): fewest registers on a path; D(u,v): longest delay among those paths."""
+    nodes = list(g.nodes)
+    t = {v: node_delay(g, v, delays) for v in nodes}
+    big = max(t.values(), default=1.0) * (len(nodes) + 1) + 1.0
+    h = nx.DiGraph()
+    h.add_nodes_from(nodes)
+    for u, v, e in g.edges(data=True):
+        w = e["z"] + e["pipe"]
+        wt = w * big - t[u]
+        if not h.has_edge(u, v) or h[u][v]["weight"] > wt:
+            h.add_edge(u, v, weight=wt)
+    dist = dict(nx.all_pairs_bellman_ford_path_length(h, weight="weight"))
+    W, D = {}, {}
+    for u, row in dist.items():
+        for v, dv in row.items():
+            # dv = W*big - S with 0 <= S < big (S: delays along the path except v's)
+            Wuv = math.ceil(dv / big - 1e-12)
+            W[u, v] = Wuv
+            D[u, v] = Wuv * big - dv + t[v]
+    return W, D
+
+
+def retime(g, period: float | None = None, delays=unit_delays):
+    """Leiserson-Saxe retiming; returns (new graph, achieved period, r).
+
+    Registers of both kinds count as registers for paths; the retiming moves
+    the ``z`` registers (all advance on the same strobe in a single-rate
+    graph, and every node maps zero inputs to zero, so zero-initialised
+    behaviour is kept). The input and output are tied to a host node so the
+    input-output timing is unchanged. With ``period`` None, the smallest
+    feasible period is found by binary search over the D values.
+    """
+    from ..graph import output_node
+    h = copy_graph(g)
+    nodes = list(h.nodes)
+    out = output_node(h)
+    W, D = _wd_matrices(h, delays)
+    cands = sorted({round(d, 9) for d in D.values()})
+    tmax = max(node_delay(h, v, delays) for v in nodes)
+    cands = [c for c in cands if c >= tmax - 1e-9]
+
+    def feasible(c):
+        cg = nx.DiGraph()
+        cg.add_nodes_from(nodes)
+        cg.add_node("_src")
+
+        def lim(u, v, b):
+            # r(u) - r(v) <= b  ->  edge v -> u with weight b
+            if cg.has_edge(v, u):
+                cg[v][u]["weight"] = min(cg[v][u]["weight"], b)
+            else:
+                cg.add_edge(v, u, weight=b)
+        for u, v, e in h.edges(data=True):
+            lim(u, v, e["z"] + e["pipe"])
+        for (u, v), d in D.items():
+            if d > c + 1e-9 and u != v:
+                lim(u, v, W[u, v] - 1)
+        # host: input and output keep their relative timing
+        lim("in", out, 0)
+        lim(out, "in", 0)
+        for v in nodes:
+            cg.add_edge("_src", v, weight=0)
+        try:
+            dist = nx.single_source_bellman_ford_path_length(cg, "_src")
+        except nx.NetworkXUnbounded:
+            return None
+        base = dist["in"]
+        return {v: int(dist[v] - base) for v in nodes}
+
+    if period is not None:
+        r = feasible(period)
+        if r is None:
+            raise ValueError(f"no retiming reaches period {period}")
+    else:
+        lo, hi = 0, len(cands) - 1
+        r = feasible(cands[hi]) if cands else {v: 0 for v in nodes}
+        best = cands[hi] if cands else 0.0
+        while lo <= hi and cands:
+            mid = (lo + hi) // 2
+            rr = feasible(cands[mid])
+            if rr is not None:
+                r, best, hi = rr, cands[mid], mid - 1
+            else:
+                lo = mid + 1
+        period = best
+    for u, v, e in h.edges(data=True):
+        w_new = e["z"] + e["pipe"] + r[v] - r[u]
+        if w_new < 0:
+            raise ValueError("illegal retiming")
+        # keep the pipeline registers where they are as far as possible
+        e["pipe"] = min(e["pipe"], w_new)
+        e["z"] = w_new - e["pipe"]
+    h.graph["retimed_period"] = critical_path(h, delays)
+    return h, h.graph["retimed_period"], r
+
+
+def iteration_bound(g, delays=unit_delays) -> float:
+    """max over loops of (sum of node delays) / (registers in the loop); 0 for feed-forward graphs."""
+    dg = nx.DiGraph()
+    for u, v, e in g.edges(data=True):
+        w = e["z"] + e["pipe"]
+        if dg.has_edge(u, v):
+            dg[u][v]["w"] = min(dg[u][v]["w"], w)
+        else:
+            dg.add_edge(u, v, w=w)
+    best = 0.0
+    for cyc in nx.simple_cycles(dg):
+        t = sum(node_delay(g, v, delays) for v in cyc)
+        w = sum(dg[cyc[i]][cyc[(i + 1) % len(cyc)]]["w"] for i in range(len(cyc)))
+        if w == 0:
+            return math.inf
+        best = max(best, t / w)
+    return best
+
+
+__all__ = ["pipeline", "retime", "iteration_bound", "critical_path", "latency", "stages",
+           "unit_delays", "arrival_times", "eval_order"]
