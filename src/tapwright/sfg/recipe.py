@@ -1,0 +1,91 @@
+"""Recipes: how a candidate structure is made from a quantized design.
+
+A :class:`Recipe` names the structure id and the parameters that, applied to
+the direct-form graph of a :class:`~tapwright.fixed.stages.FixedDesign`, give
+the candidate's graph: the structure transforms in order, the time-sharing
+factor and the pipelining target. ``design.json`` records it, so ``check``
+rebuilds exactly the graph that ``build`` lowered.
+
+Structure ids (used everywhere: CLI, design.json, report):
+``direct``, ``transposed``, ``symmetric``, ``halfband``, ``polyphase``,
+``timeshared``, ``sos_df1``, ``sos_df2t``, ``cic``, ``chain``.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from ..fixed.stages import FixedDesign
+from . import build as _build
+from .transforms import pipeline as _pipe
+from .transforms import structure as _st
+from .transforms.timeshare import timeshare
+
+STRUCTURES = ("direct", "transposed", "symmetric", "halfband", "polyphase", "timeshared",
+              "sos_df1", "sos_df2t", "cic", "chain", "shiftadd")
+
+_TRANSFORM = {
+    "transposed": _st.transpose,
+    "symmetric": _st.symmetric,
+    "halfband": _st.drop_zeros,
+    "polyphase": _st.polyphase,
+}
+
+
+@dataclass(frozen=True)
+class Recipe:
+    """``transforms``: applied in order to the direct form (ids from ``_TRANSFORM``).
+
+    ``fold``: time-sharing factor (1 = none). ``period``: pipelining target in
+    the delay model's units (None = no pipeline registers). ``register_output``:
+    a register in front of ``out_data``.
+    """
+
+    structure: str
+    transforms: tuple[str, ...] = ()
+    fold: int = 1
+    period: float | None = None
+    register_output: bool = True
+    sos_form: str = "df1"
+
+    @property
+    def label(self) -> str:
+        parts = [self.structure]
+        extra = [t for t in self.transforms if t != self.structure]
+        if self.structure == "halfband":
+            extra = [t for t in extra if t != "symmetric"]
+        if extra:
+            parts.append("+" + "+".join(extra))
+        if self.fold > 1:
+            parts.append(f"/k{self.fold}")
+        if self.period is not None:
+            parts.append(f"/p{self.period:g}")
+        return "".join(parts)
+
+    def as_dict(self) -> dict:
+        return {"structure": self.structure, "transforms": list(self.transforms), "fold": self.fold,
+                "period": self.period, "register_output": self.register_output, "sos_form": self.sos_form}
+
+    @staticmethod
+    def from_dict(d: dict) -> "Recipe":
+        return Recipe(structure=d["structure"], transforms=tuple(d.get("transforms", ())),
+                      fold=int(d.get("fold", 1)), period=d.get("period"),
+                      register_output=bool(d.get("register_output", True)),
+                      sos_form=d.get("sos_form", "df1"))
+
+
+def realize(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays=None):
+    """The candidate's signal-flow graph (formats propagated, pipeline applied)."""
+    chain = "transposed" in recipe.transforms
+    g = _build.build(design, name=name, fir_adder="chain" if chain else "tree", sos_form=recipe.sos_form)
+    for t in recipe.transforms:
+        g = _TRANSFORM[t](g)
+    if recipe.fold > 1:
+        g = timeshare(g, recipe.fold)
+    d = delays or _pipe.unit_delays
+    if recipe.period is not None:
+        g = _pipe.pipeline(g, recipe.period, d, register_output=recipe.register_output)
+    elif recipe.register_output:
+        g = _pipe.pipeline(g, float("inf"), d, register_output=True)
+    g.graph["structure"] = recipe.structure
+    g.graph["recipe"] = recipe
+    return g
