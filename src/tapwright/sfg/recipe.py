@@ -36,7 +36,8 @@ class Recipe:
     """``transforms``: applied in order to the direct form (ids from ``_TRANSFORM``).
 
     ``fold``: time-sharing factor (1 = none). ``period``: pipelining target in
-    the delay model's units (None = no pipeline registers). ``register_output``:
+    the delay model's units (ns of ``delay_model``'s delay table; unit
+    delays for ``generic``; None = no pipeline registers). ``register_output``:
     a register in front of ``out_data``.
     """
 
@@ -46,6 +47,7 @@ class Recipe:
     period: float | None = None
     register_output: bool = True
     sos_form: str = "df1"
+    delay_model: str = "generic"
 
     @property
     def label(self) -> str:
@@ -63,14 +65,15 @@ class Recipe:
 
     def as_dict(self) -> dict:
         return {"structure": self.structure, "transforms": list(self.transforms), "fold": self.fold,
-                "period": self.period, "register_output": self.register_output, "sos_form": self.sos_form}
+                "period": self.period, "register_output": self.register_output, "sos_form": self.sos_form,
+                "delay_model": self.delay_model}
 
     @staticmethod
     def from_dict(d: dict) -> "Recipe":
         return Recipe(structure=d["structure"], transforms=tuple(d.get("transforms", ())),
                       fold=int(d.get("fold", 1)), period=d.get("period"),
                       register_output=bool(d.get("register_output", True)),
-                      sos_form=d.get("sos_form", "df1"))
+                      sos_form=d.get("sos_form", "df1"), delay_model=d.get("delay_model", "generic"))
 
 
 def realize(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays=None):
@@ -81,7 +84,10 @@ def realize(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays
         g = _TRANSFORM[t](g)
     if recipe.fold > 1:
         g = timeshare(g, recipe.fold)
-    d = delays or _pipe.unit_delays
+    if delays is None:
+        from ..cost.timing import delay_function
+        delays = delay_function(recipe.delay_model)
+    d = delays
     if recipe.period is not None:
         g = _pipe.pipeline(g, recipe.period, d, register_output=recipe.register_output)
     elif recipe.register_output:

@@ -1,0 +1,161 @@
+"""Cost model: a signal-flow graph mapped onto a device profile.
+
+Reads the graph's metrics (:mod:`tapwright.sfg.metrics`) and the device's
+tables and rules (:mod:`tapwright.cost.devices`); nothing here branches on a
+device name. Categories follow the contract (design.json ``estimate``):
+
+- ``dsp``: hard multiplier blocks, by :func:`~tapwright.cost.devices.mult_blocks`
+  (Yosys' tiling of wide products); products by zero or a power of two are
+  wiring; constant products too small for a block stay in the fabric as the
+  shifted partial products Yosys' ``maccmap`` builds (one adder per extra set
+  bit of the constant);
+- ``lut`` and ``carry``: every adder, subtractor, pre-adder, accumulator and
+  rounding adder by its exact width through
+  :func:`~tapwright.cost.devices.adder_cells`, plus multiplexers and
+  coefficient tables of time-shared structures and saturation logic;
+- ``ff``: every register bit (delay lines, pipeline, accumulators, counters,
+  valid bits) less those the hard block absorbs
+  (:func:`~tapwright.cost.devices.absorbed_registers`);
+- ``fmax_mhz``: 1 / longest register-to-register path, from the calibrated
+  delay table.
+
+These are estimates for sizing before layout, not sign-off.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from ..sfg.graph import input_interval, operands
+from ..sfg.metrics import measure
+from . import timing
+from .devices import absorbed_registers, adder_cells, get_profile, mult_blocks
+
+
+@dataclass
+class Estimate:
+    device: str
+    dsp: int = 0
+    lut: int = 0
+    carry: int = 0
+    ff: int = 0
+    fmax_mhz: float | None = None
+    latency: int = 0
+    input_interval: int = 1
+    critical_ns: float = 0.0
+    mults: list = field(default_factory=list)
+    adds: list = field(default_factory=list)
+    ff_bits: int = 0
+    detail: dict = field(default_factory=dict)
+
+    def as_dict(self) -> dict:
+        d = {"device": self.device, "dsp": self.dsp, "lut": self.lut, "ff": self.ff, "carry": self.carry,
+             "fmax_mhz": None if self.fmax_mhz is None else round(self.fmax_mhz, 1),
+             "latency": self.latency, "input_interval": self.input_interval}
+        if self.device == "generic":
+            d["mult"] = [{"a": a, "b": b} for a, b in self.mults]
+            d["add"] = len(self.adds)
+            d["add_bits"] = sum(self.adds)
+            d["ff"] = self.ff_bits
+        return d
+
+
+def _mux_luts(prof, width: int, inputs: int) -> int:
+    if inputs <= 1:
+        return 0
+    k = max(2, prof.lut_inputs)
+    per = max(2, k - 2)   # data inputs one LUT multiplexes (LUT6: 4, LUT4: 2)
+    luts_per_bit = math.ceil((inputs - 1) / (per - 1))
+    return width * luts_per_bit
+
+
+def _table_luts(prof, entries: int, width: int) -> int:
+    k = max(2, prof.lut_inputs)
+    per = 1 << k
+    return width * math.ceil(entries / per)
+
+
+def estimate(g, device: str) -> Estimate:
+    """Resource and clock estimate of graph ``g`` on ``device``."""
+    prof = get_profile(device)
+    delays = timing.delay_function(prof.name)
+    m = measure(g, delays)
+    est = Estimate(device=prof.name)
+    est.latency = m.latency
+    est.input_interval = input_interval(g)
+    est.critical_ns = m.critical_path
+    est.fmax_mhz = timing.fmax_mhz(m.critical_path, prof.name)
+    est.mults = [(a, b) for a, b, _ in m.mults]
+    est.adds = [w for w, _, _ in m.adders]
+    est.ff_bits = m.reg_bits
+    if prof.name == "generic":
+        est.dsp = len(m.mults)
+        est.ff = m.reg_bits
+        return est
+
+    lut = carry = 0
+    ff = m.reg_bits
+    absorbed = 0
+    soft_mult_adders = []
+    acc_in_dsp = set()
+    for a, b, v in m.mults:
+        blocks = mult_blocks(prof, a, b)
+        n = g.nodes[v]
+        if blocks == 0:
+            # fabric constant product: shifted partial products summed
+            if n.get("table") is None:
+                ones = bin(abs(int(n["coeff"]))).count("1")
+                soft_mult_adders += [a + b] * max(0, ones - 1)
+            else:
+                soft_mult_adders += [a + b] * max(1, b - 1)
+            continue
+        est.dsp += blocks
+        # registers the block may absorb: pipeline registers right after the product
+        pipe_out = [e["pipe"] for _, _, e in g.out_edges(v, data=True)]
+        if pipe_out and prof.regs is not None:
+            stages = min(pipe_out)
+            ab = absorbed_registers(prof, input_stages=0, pipeline_stages=min(stages, 1),
+                                    output_stages=max(0, stages - 1), has_reset=False)
+            absorbed += (ab["pipeline"] + ab["output"]) * n["fmt"].bits
+        # a time-shared accumulator right after the product becomes the post-adder
+        if prof.regs is not None and prof.regs.post_adder_bits:
+            for _, w, e in g.out_edges(v, data=True):
+                if g.nodes[w]["kind"] == "acc" and g.nodes[w]["fmt"].bits <= prof.regs.post_adder_bits \
+                        and e["pipe"] == 0 and blocks == 1:
+                    acc_in_dsp.add(w)
+    ff -= absorbed
+    for w in acc_in_dsp:
+        ff -= g.nodes[w]["fmt"].bits
+    for width, role, v in m.adders:
+        if v in acc_in_dsp:
+            continue
+        l, c = adder_cells(prof, width)
+        lut += l
+        carry += c
+    for width in soft_mult_adders:
+        l, c = adder_cells(prof, width)
+        lut += l
+        carry += c
+    for width in m.round_adders:
+        l, c = adder_cells(prof, width)
+        lut += l
+        carry += c
+    # saturation: compare the dropped MSBs and multiplex the limits, about a LUT per output bit
+    for v, n in g.nodes(data=True):
+        if n["kind"] == "quant" and n["overflow"] == "saturate":
+            (u, _), = operands(g, v)
+            if g.nodes[u]["fmt"].bits > n["fmt"].bits + (g.nodes[u]["fmt"].frac - n["fmt"].frac):
+                lut += n["fmt"].bits
+    for width, inputs, _ in m.muxes:
+        lut += _mux_luts(prof, width, inputs)
+    for entries, width in m.tables:
+        lut += _table_luts(prof, entries, width)
+    # control: phase counters, schedule counter, valid pipeline
+    if m.counter_bits:
+        l, c = adder_cells(prof, m.counter_bits)
+        lut += l + m.counter_bits
+        carry += c
+    est.lut, est.carry, est.ff = int(lut), int(carry), int(max(0, ff))
+    est.detail = {"absorbed_ff": absorbed, "soft_mult_adders": len(soft_mult_adders),
+                  "acc_in_dsp": len(acc_in_dsp)}
+    return est

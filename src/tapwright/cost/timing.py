@@ -1,0 +1,92 @@
+"""Node delays (ns) per device, for critical paths, pipelining and the reachable clock.
+
+The figures come from the device profile's :class:`~tapwright.cost.devices.Delays`
+table (calibrated with nextpnr on probes for ECP5 and iCE40; datasheet-based
+and marked unverified for xc7). ``generic`` has no device: it uses nominal
+unit delays (one per adder, two per multiplier) and reports no clock.
+
+The estimate of the reachable clock is 1 / (longest register-to-register path),
+an estimate for sizing before layout, not a timing sign-off.
+"""
+from __future__ import annotations
+
+import math
+from functools import lru_cache
+
+from ..sfg.metrics import is_free_coeff
+from ..sfg.transforms.pipeline import unit_delays
+from .devices import get_profile
+
+
+def _mul_free(n) -> bool:
+    return n.get("table") is None and is_free_coeff(n["coeff"])
+
+
+@lru_cache(maxsize=None)
+def delay_function(device: str):
+    """A ``delays(g, v) -> ns`` function for ``device`` (unit delays for generic)."""
+    prof = get_profile(device)
+    d = prof.delays
+    if d is None:
+        return unit_delays
+
+    def adder(w):
+        return d.adder_fixed_ns + d.carry_ns_per_bit * w
+
+    def lut_levels(inputs):
+        if inputs <= 1:
+            return 0
+        k = max(2, prof.lut_inputs)
+        # a LUTk multiplexes k-2 data inputs at best (LUT6: 4:1); count levels
+        per = max(2, k - 2)
+        return max(1, math.ceil(math.log(inputs, per)))
+
+    def f(g, v):
+        n = g.nodes[v]
+        k = n["kind"]
+        if k == "mul":
+            if _mul_free(n):
+                return 0.0
+            # a hard product: its register-to-register time less the path overhead
+            return max(0.5, d.mult_reg_ns - d.adder_fixed_ns)
+        if k == "add":
+            ins = g.in_degree(v)
+            if ins <= 1 and all(e["sign"] == 1 for _, _, e in g.in_edges(v, data=True)):
+                return 0.0
+            return adder(n["fmt"].bits) - d.adder_fixed_ns + d.route_ns
+        if k == "acc":
+            return adder(n["fmt"].bits) - d.adder_fixed_ns + d.route_ns
+        if k == "quant":
+            # rounding adder and saturation compare/multiplex
+            return adder(n["fmt"].bits) - d.adder_fixed_ns + d.lut_ns + d.route_ns
+        if k == "mux":
+            return lut_levels(int(n.get("ports", 2))) * (d.lut_ns + d.route_ns)
+        return 0.0
+
+    f.fixed_ns = d.adder_fixed_ns  # clock-to-out + setup + routing overhead per path
+    f.device = device
+    return f
+
+
+def path_overhead(device: str) -> float:
+    prof = get_profile(device)
+    return prof.delays.adder_fixed_ns if prof.delays else 0.0
+
+
+def fmax_mhz(critical_ns: float, device: str) -> float | None:
+    """Reachable clock estimate (MHz) from the longest combinational path in ns."""
+    prof = get_profile(device)
+    if prof.delays is None:
+        return None
+    total = critical_ns + prof.delays.adder_fixed_ns
+    if prof.mult is not None:
+        total = max(total, prof.delays.mult_reg_ns)
+    return 1000.0 / total if total > 0 else None
+
+
+def target_period(device: str, clock_hz: float) -> float:
+    """Combinational budget (ns) for pipelining to ``clock_hz`` on ``device``."""
+    prof = get_profile(device)
+    if prof.delays is None:
+        return 4.0  # generic: four unit delays per stage
+    return max(1e-3, 1e9 / clock_hz - prof.delays.adder_fixed_ns)
