@@ -1,0 +1,274 @@
+"""Structure explorer: every applicable structure x pipelining x time-sharing, ranked.
+
+For a quantized design the explorer builds each candidate's signal-flow graph
+(:func:`tapwright.sfg.recipe.realize`), estimates it on the target device
+(:func:`tapwright.cost.estimate.estimate`) and checks it against the spec:
+
+- throughput: the structure's ``input_interval`` must not exceed the clock
+  cycles available per input sample, floor(clock / sample_rate);
+- clock: the estimated reachable clock must reach the spec's clock;
+- budget: dsp, lut, ff and latency within ``[target.budget]``.
+
+Ranking. Among feasible candidates the recommendation is the cheapest by one
+documented weighting: each resource as a fraction of what the spec allows
+(its budget when given, else the capacity of the family's smallest listed
+part), summed: ``dsp/DSP + (lut + carry)/LUT + ff/FF``, with latency as a tie
+break. On ``generic`` (no device) the weighting is a gate-area proxy:
+sum of a*b over multipliers + adder bits + register bits. The Pareto front
+over (dsp, lut + carry, ff, latency) is marked.
+
+Lower bound on hard multipliers: a filter needs at least
+ceil(T / (M * C)) multipliers, where T is the number of products per output
+left after symmetry, zero and power-of-two savings, M the decimation in front
+of them and C = floor(clock / sample_rate) the cycles per input sample: each
+multiplier does at most one product per cycle. The time-shared polyphase
+candidates reach it.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from .cost.devices import get_profile
+from .cost.estimate import Estimate, estimate
+from .cost.timing import delay_function, target_period
+from .fixed.stages import FixedDesign
+from .sfg.metrics import is_free_coeff
+from .sfg.recipe import Recipe, realize
+
+
+@dataclass
+class Candidate:
+    recipe: Recipe
+    estimate: Estimate
+    feasible: bool = False
+    why: str = ""
+    cost: float = 0.0
+    pareto: bool = False
+    excess: dict = field(default_factory=dict)
+
+    @property
+    def structure(self) -> str:
+        return self.recipe.structure
+
+    @property
+    def label(self) -> str:
+        return self.recipe.label
+
+    def as_json(self) -> dict:
+        return {"structure": self.structure, "id": self.label, "feasible": self.feasible,
+                "estimate": self.estimate.as_dict(), "why": self.why,
+                "transforms": list(self.recipe.transforms), "fold": self.recipe.fold,
+                "pipeline_period": self.recipe.period, "cost": round(self.cost, 6), "pareto": self.pareto,
+                "recipe": self.recipe.as_dict()}
+
+
+@dataclass
+class Exploration:
+    candidates: list
+    recommended: Candidate | None
+    closest: Candidate | None
+    lower_bound: int
+    cycles_per_sample: int
+    notes: list = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return self.recommended is not None
+
+
+def _fir_stages(fixed):
+    return [s for s in fixed.stages if s.kind == "fir"]
+
+
+def _is_halfband(st) -> bool:
+    c = st.coeffs
+    L = len(c)
+    if L < 7 or L % 2 == 0 or st.symmetry() != 1:
+        return False
+    mid = (L - 1) // 2
+    return all(c[k] == 0 for k in range(L) if (k - mid) % 2 == 0 and k != mid) and c[mid] != 0
+
+
+def products_lower_bound(fixed: FixedDesign, cycles_per_sample: int) -> int:
+    """ceil(sum over FIR stages of T_s / (rate_s * M_s * C)) (see module docstring)."""
+    total = 0.0
+    rate = 1
+    for st in fixed.stages:
+        if st.kind == "fir":
+            c = st.coeffs
+            L = len(c)
+            sym = st.symmetry()
+            if sym:
+                idx = range((L + 1) // 2)
+            else:
+                idx = range(L)
+            T = sum(1 for k in idx if not is_free_coeff(c[k]))
+            total += T / (rate * st.decimation * cycles_per_sample)
+        elif st.kind == "sos":
+            T = sum(sum(1 for v in list(s.b) + list(s.a[1:]) if not is_free_coeff(v)) for s in st.sections)
+            total += T / (rate * cycles_per_sample)
+        rate *= getattr(st, "decimation", 1)
+    return math.ceil(total - 1e-12)
+
+
+def base_transform_sets(fixed: FixedDesign):
+    """(structure id, transforms) pairs of the unfolded structures that apply."""
+    kinds = {s.kind for s in fixed.stages}
+    out = []
+    if kinds == {"sos"} or (kinds == {"sos", "fir"} and all(
+            s.kind == "sos" or len(s.coeffs) == 1 for s in fixed.stages)):
+        return [("sos_df1", (), "df1"), ("sos_df2t", (), "df2t")]
+    firs = _fir_stages(fixed)
+    if not firs:
+        return [("cic", (), "df1")]
+    sym = all(s.symmetry() != 0 for s in firs)
+    hb = all(_is_halfband(s) for s in firs)
+    dec = any(s.decimation > 1 for s in firs)
+    out.append(("direct", (), "df1"))
+    out.append(("transposed", ("transposed",), "df1"))
+    if sym:
+        out.append(("symmetric", ("symmetric",), "df1"))
+        out.append(("transposed", ("transposed", "symmetric"), "df1"))
+    if hb:
+        out.append(("halfband", ("halfband", "symmetric"), "df1"))
+    if dec:
+        out.append(("polyphase", ("polyphase",), "df1"))
+        if sym:
+            out.append(("polyphase", ("polyphase", "symmetric"), "df1"))
+        if hb:
+            out.append(("halfband", ("polyphase", "halfband", "symmetric"), "df1"))
+    return out
+
+
+def fold_factors(T: int, K_max: int) -> list[int]:
+    """Folding factors worth trying: the smallest K for each multiplier count P."""
+    if K_max < 2 or T < 2:
+        return []
+    Ks = set()
+    P_min = math.ceil(T / K_max)
+    for P in sorted({P_min, P_min + 1, 2 * P_min, 4 * P_min, math.ceil(T / 2), math.ceil(T / 4)}):
+        if P < 1 or P >= T:
+            continue
+        K = math.ceil(T / P)
+        if 2 <= K <= K_max:
+            Ks.add(K)
+    Ks.add(K_max if K_max <= T else T)
+    return sorted(k for k in Ks if 2 <= k <= min(K_max, T))
+
+
+def recipes(fixed: FixedDesign, spec) -> list[Recipe]:
+    """Every candidate recipe for the spec's device and clock."""
+    dev = spec.device
+    C = spec.cycles_per_sample
+    period_target = target_period(dev, spec.clock)
+    out = []
+    bases = base_transform_sets(fixed)
+    for sid, tr, form in bases:
+        for per in (None, period_target):
+            out.append(Recipe(sid, tr, period=per, sos_form=form, delay_model=dev))
+    # time-sharing over the most reduced non-transposed bases
+    firs = _fir_stages(fixed)
+    if firs and not {s.kind for s in fixed.stages} & {"sos"}:
+        reduced = [b for b in bases if "transposed" not in b[1]]
+        seen = set()
+        for sid, tr, form in reduced:
+            M = max(s.decimation for s in firs) if "polyphase" in tr else 1
+            K_max = C * M
+            g = realize(fixed, Recipe(sid, tr, register_output=False, delay_model=dev))
+            T = sum(1 for _, n in g.nodes(data=True) if n["kind"] == "mul" and not is_free_coeff(n["coeff"]))
+            for K in fold_factors(T, K_max):
+                key = (tr, K)
+                if key in seen:
+                    continue
+                seen.add(key)
+                for per in (None, period_target):
+                    out.append(Recipe("timeshared", tr, fold=K, period=per, delay_model=dev))
+    return out
+
+
+def _normalizers(spec):
+    prof = get_profile(spec.device)
+    part = prof.parts[0] if prof.parts else None
+    b = spec.budget
+    return {
+        "dsp": b.dsp if b.dsp else (part.dsp if part else 1),
+        "lut": b.lut if b.lut else (part.lut if part else 1),
+        "ff": b.ff if b.ff else (part.ff if part else 1),
+    }
+
+
+def _cost(est: Estimate, spec) -> float:
+    if spec.device == "generic":
+        return float(sum(a * b for a, b in est.mults) + sum(est.adds) + est.ff_bits) + 1e-6 * est.latency
+    n = _normalizers(spec)
+    return (est.dsp / max(1, n["dsp"]) + (est.lut + est.carry) / max(1, n["lut"])
+            + est.ff / max(1, n["ff"]) + 1e-6 * est.latency)
+
+
+def _check(c: Candidate, spec):
+    e = c.estimate
+    reasons, excess = [], {}
+    C = spec.cycles_per_sample
+    if e.input_interval > C:
+        reasons.append(f"needs {e.input_interval} cycles per sample, the clock gives {C}")
+        excess["input_interval"] = e.input_interval - C
+    clock_mhz = spec.clock / 1e6
+    if e.fmax_mhz is not None and e.fmax_mhz < clock_mhz * (1 - 1e-9):
+        reasons.append(f"reaches about {e.fmax_mhz:.0f} MHz, below the {clock_mhz:g} MHz clock")
+        excess["clock_mhz"] = round(clock_mhz - e.fmax_mhz, 1)
+    b = spec.budget
+    used = {"dsp": e.dsp, "lut": e.lut, "ff": e.ff, "latency": e.latency}
+    if spec.device == "generic":
+        used["lut"] = 0
+    for k in ("dsp", "lut", "ff", "latency"):
+        lim = getattr(b, k)
+        if lim is not None and used[k] > lim:
+            reasons.append(f"{k} {used[k]} > budget {lim}")
+            excess[k] = used[k] - lim
+    c.feasible = not reasons
+    c.why = "; ".join(reasons)
+    c.excess = excess
+
+
+def _pareto(cands):
+    pts = [(c.estimate.dsp, c.estimate.lut + c.estimate.carry, c.estimate.ff, c.estimate.latency) for c in cands]
+    for i, c in enumerate(cands):
+        p = pts[i]
+        c.pareto = not any(all(q[j] <= p[j] for j in range(4)) and q != p for q in pts)
+
+
+def explore(fixed: FixedDesign, spec, *, name: str | None = None) -> Exploration:
+    """Estimate every candidate; rank; pick the recommendation (or the closest miss)."""
+    C = spec.cycles_per_sample
+    cands = []
+    seen = set()
+    for r in recipes(fixed, spec):
+        g = realize(fixed, r, name=name or spec.name, delays=delay_function(spec.device))
+        est = estimate(g, spec.device)
+        key = (r.label,)
+        if key in seen:
+            continue
+        seen.add(key)
+        c = Candidate(r, est)
+        _check(c, spec)
+        c.cost = _cost(est, spec)
+        cands.append(c)
+    _pareto(cands)
+    cands.sort(key=lambda c: (not c.feasible, c.cost, c.label))
+    feas = [c for c in cands if c.feasible]
+    rec = feas[0] if feas else None
+    closest = None
+    if rec is None and cands:
+        def badness(c):
+            tot = 0.0
+            n = _normalizers(spec)
+            for k, v in c.excess.items():
+                scale = {"dsp": n["dsp"], "lut": n["lut"], "ff": n["ff"],
+                         "latency": spec.budget.latency or 1, "input_interval": 1,
+                         "clock_mhz": spec.clock / 1e6}.get(k, 1)
+                tot += v / max(1, scale)
+            return (tot, c.cost)
+        closest = min(cands, key=badness)
+    lb = products_lower_bound(fixed, C)
+    return Exploration(cands, rec, closest, lb, C)

@@ -1,0 +1,168 @@
+"""``tapwright plan``: design the filter, explore the structures, rank them.
+
+The Python API a notebook user calls::
+
+    from tapwright.spec import load_spec
+    from tapwright.plan import plan
+    result = plan(load_spec("specs/rx_chan_dec4.toml"))
+    result.recommended.estimate.dsp
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from . import CAUTION
+from .explore import Exploration, explore
+
+
+@dataclass
+class PlanResult:
+    spec: object
+    design: object          # tapwright.design.plan.DesignPlan
+    exploration: Exploration | None
+    error: str = ""
+
+    @property
+    def ok(self) -> bool:
+        return not self.error and self.design is not None and self.design.ok and \
+            self.exploration is not None and self.exploration.ok
+
+    @property
+    def recommended(self):
+        return self.exploration.recommended if self.exploration else None
+
+    def as_json(self) -> dict:
+        ex = self.exploration
+        d = {"spec": self.spec.as_dict(),
+             "design": self.design.as_dict() if self.design is not None else None,
+             "candidates": [c.as_json() for c in ex.candidates] if ex else [],
+             "recommended": ex.recommended.label if ex and ex.recommended else None,
+             "closest": ex.closest.label if ex and ex.closest else None,
+             "dsp_lower_bound": ex.lower_bound if ex else None,
+             "cycles_per_sample": ex.cycles_per_sample if ex else None,
+             "ok": self.ok,
+             "caution": CAUTION}
+        if self.error:
+            d["error"] = self.error
+        return d
+
+
+def plan(spec, *, design=None) -> PlanResult:
+    """Design (unless ``design`` is given) and explore."""
+    from .design.plan import DesignError, make_design
+
+    if design is None:
+        try:
+            design = make_design(spec)
+        except DesignError as e:
+            return PlanResult(spec, None, None, error=str(e))
+    ex = explore(design.fixed, spec)
+    return PlanResult(spec, design, ex)
+
+
+# ----------------------------------------------------------------------------------------------
+# text rendering
+
+
+def _hz(f: float) -> str:
+    for unit, s in ((1e9, "GHz"), (1e6, "MHz"), (1e3, "kHz")):
+        if abs(f) >= unit:
+            return f"{f / unit:.6g} {s}"
+    return f"{f:.6g} Hz"
+
+
+def _table(rows, header, align=None):
+    cols = list(zip(*([header] + rows))) if rows else [[h] for h in header]
+    widths = [max(len(str(x)) for x in col) for col in cols]
+    align = align or ["<"] + [">"] * (len(header) - 1)
+    fmt = "  ".join(f"{{:{a}{w}}}" for a, w in zip(align, widths))
+    lines = [fmt.format(*header), fmt.format(*["-" * w for w in widths])]
+    lines += [fmt.format(*[str(x) for x in r]) for r in rows]
+    return lines
+
+
+def render_design(design, spec) -> list[str]:
+    d = design.as_dict()
+    out = []
+    out.append(f"filter: {d.get('summary', design.family.upper())}")
+    for line in str(design.why).splitlines():
+        out.append(f"  why: {line}" if line is design.why.splitlines()[0] else f"       {line}")
+    fx = design.fixed
+    of = fx.out_fmt
+    out.append(f"  word lengths: input {fx.in_fmt.bits} bits ({fx.in_fmt.q()}), coefficients "
+               f"{design.coeff_bits} bits, accumulator {design.acc_bits} bits, output {of.bits} bits "
+               f"({of.q()}), rounding {fx.rounding}, overflow {fx.overflow}")
+    rows = []
+    for b in design.band_checks:
+        unit = "dB" if b.kind in ("pass", "stop") else ""
+        what = {"pass": "ripple", "stop": "atten", "shaped": "error"}.get(b.kind, b.kind)
+        rows.append([f"{b.kind} {b.index}", f"{_hz(b.edges[0])} - {_hz(b.edges[1])}",
+                     f"{what} {b.required:.4g} {unit}".strip(), f"{b.achieved_float:.4g}",
+                     f"{b.achieved_quant:.4g}", f"{b.margin:+.3g} {unit}".strip(),
+                     "met" if b.margin >= 0 else "MISSED"])
+    out += ["  " + ln for ln in _table(rows, ["band", "edges", "required", "float", "quantized",
+                                              "margin", ""], ["<", "<", "<", ">", ">", ">", "<"])]
+    nz = design.noise
+    if nz:
+        parts = []
+        if "output_noise_lsb2" in nz:
+            parts.append(f"output noise {nz['output_noise_lsb2']:.3g} LSB^2")
+        if "snr_db_fullscale_sine" in nz:
+            parts.append(f"SNR {nz['snr_db_fullscale_sine']:.1f} dB for a full-scale sine")
+        out.append("  noise: " + ", ".join(parts))
+    for n in getattr(design, "notes", []) or []:
+        out.append(f"  note: {n}")
+    return out
+
+
+def render_plan(result: PlanResult) -> str:
+    spec = result.spec
+    lines = []
+    head = f"{spec.name}: {_hz(spec.sample_rate)} in"
+    if spec.decimation > 1:
+        head += f", decimation {spec.decimation} -> {_hz(spec.output_rate)} out"
+    head += (f"; clock {_hz(spec.clock)} ({spec.cycles_per_sample} cycle"
+             f"{'s' if spec.cycles_per_sample > 1 else ''} per input sample); device {spec.device}")
+    lines.append(head)
+    lines.append("")
+    if result.error:
+        lines.append(f"the filter cannot be designed: {result.error}")
+        return "\n".join(lines)
+    lines += render_design(result.design, spec)
+    ex = result.exploration
+    lines.append("")
+    b = spec.budget.as_dict()
+    btxt = ", ".join(f"{k} {v}" for k, v in b.items()) if b else "none given"
+    lines.append(f"structures: {len(ex.candidates)} candidates, ranked (budget: {btxt})")
+    rows = []
+    for i, c in enumerate(ex.candidates, 1):
+        e = c.estimate
+        mark = "*" if ex.recommended is c else ("P" if c.pareto else "")
+        rows.append([f"{i}{mark}", c.label, e.dsp, e.lut, e.carry, e.ff, e.latency, e.input_interval,
+                     "-" if e.fmax_mhz is None else f"{e.fmax_mhz:.0f}",
+                     "yes" if c.feasible else "no", c.why])
+    hdr = ["rank", "candidate", "dsp", "lut", "carry", "ff", "lat", "ii", "fmax", "fits", "why not"]
+    if spec.device == "generic":
+        hdr[2] = "mult"
+    lines += ["  " + ln for ln in _table(rows, hdr, ["<", "<", ">", ">", ">", ">", ">", ">", ">", "<", "<"])]
+    lines.append("  (* recommended, P on the Pareto front of dsp / lut+carry / ff / latency; "
+                 "ii = clock cycles per input sample; fmax in MHz, estimated)")
+    lines.append("")
+    lines.append(f"hard-multiplier lower bound at {ex.cycles_per_sample} cycle(s) per sample: {ex.lower_bound}")
+    if ex.recommended is not None:
+        c = ex.recommended
+        lines.append(f"recommended: {c.label} - {c.estimate.dsp} {'multipliers' if spec.device == 'generic' else 'DSP blocks'}, "
+                     f"{c.estimate.lut} LUT, {c.estimate.carry} carry, {c.estimate.ff} FF, latency "
+                     f"{c.estimate.latency} cycles")
+        lines.append(f"build it:    tapwright build {spec.path} --structure {c.label}")
+    else:
+        c = ex.closest
+        lines.append("no candidate fits.")
+        if c is not None:
+            over = ", ".join(f"{k} over by {v}" for k, v in c.excess.items())
+            lines.append(f"closest: {c.label} ({over})")
+    if not result.design.ok:
+        lines.append("the quantized filter misses the spec in at least one band (see the table above)")
+    lines.append("")
+    lines.append(CAUTION)
+    return "\n".join(lines)
