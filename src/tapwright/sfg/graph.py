@@ -300,13 +300,13 @@ def eval_order_all(g) -> list:
 
 def input_interval(g) -> int:
     """Clock cycles between accepted input samples that the structure needs."""
-    K = int(g.graph.get("fold", 1))
-    if K <= 1:
+    if not any(n["kind"] == "mux" for _, n in g.nodes(data=True)):
         return 1
     rd = rate_divisors(g)
     worst = 1
     for v, n in g.nodes(data=True):
         if n["kind"] == "mux":
+            K = int(n.get("steps", g.graph.get("fold", 1)))
             for u, _ in operands(g, v):
                 worst = max(worst, -(-K // rd[u]))
     return worst

@@ -23,11 +23,12 @@ from .transforms.timeshare import timeshare
 STRUCTURES = ("direct", "transposed", "symmetric", "halfband", "polyphase", "timeshared",
               "sos_df1", "sos_df2t", "cic", "chain", "shiftadd")
 
+# canonical order for per-stage application (a chain)
 _TRANSFORM = {
-    "transposed": _st.transpose,
-    "symmetric": _st.symmetric,
-    "halfband": _st.drop_zeros,
     "polyphase": _st.polyphase,
+    "halfband": _st.drop_zeros,
+    "symmetric": _st.symmetric,
+    "transposed": _st.transpose,
 }
 
 
@@ -48,6 +49,8 @@ class Recipe:
     register_output: bool = True
     sos_form: str = "df1"
     delay_model: str = "generic"
+    stage_transforms: tuple | None = None
+    stage_folds: tuple | None = None
 
     @property
     def label(self) -> str:
@@ -66,23 +69,37 @@ class Recipe:
     def as_dict(self) -> dict:
         return {"structure": self.structure, "transforms": list(self.transforms), "fold": self.fold,
                 "period": self.period, "register_output": self.register_output, "sos_form": self.sos_form,
-                "delay_model": self.delay_model}
+                "delay_model": self.delay_model,
+                "stage_transforms": None if self.stage_transforms is None else [list(t) for t in self.stage_transforms],
+                "stage_folds": None if self.stage_folds is None else list(self.stage_folds)}
 
     @staticmethod
     def from_dict(d: dict) -> "Recipe":
         return Recipe(structure=d["structure"], transforms=tuple(d.get("transforms", ())),
                       fold=int(d.get("fold", 1)), period=d.get("period"),
                       register_output=bool(d.get("register_output", True)),
-                      sos_form=d.get("sos_form", "df1"), delay_model=d.get("delay_model", "generic"))
+                      sos_form=d.get("sos_form", "df1"), delay_model=d.get("delay_model", "generic"),
+                      stage_transforms=None if d.get("stage_transforms") is None
+                      else tuple(tuple(t) for t in d["stage_transforms"]),
+                      stage_folds=None if d.get("stage_folds") is None else tuple(d["stage_folds"]))
 
 
 def realize(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays=None):
     """The candidate's signal-flow graph (formats propagated, pipeline applied)."""
-    chain = "transposed" in recipe.transforms
+    chain = "transposed" in recipe.transforms and recipe.stage_transforms is None
     g = _build.build(design, name=name, fir_adder="chain" if chain else "tree", sos_form=recipe.sos_form)
-    for t in recipe.transforms:
-        g = _TRANSFORM[t](g)
-    if recipe.fold > 1:
+    if recipe.stage_transforms is None:
+        for t in recipe.transforms:
+            g = _TRANSFORM[t](g)
+    else:
+        # per stage (a chain): each transform on the stages that list it, in canonical order
+        order = [t for t in _TRANSFORM if any(t in st for st in recipe.stage_transforms)]
+        for t in order:
+            which = {i for i, st in enumerate(recipe.stage_transforms) if t in st}
+            g = _TRANSFORM[t](g, stages=which)
+    if recipe.stage_folds is not None and any(k > 1 for k in recipe.stage_folds):
+        g = timeshare(g, {i: k for i, k in enumerate(recipe.stage_folds) if k > 1})
+    elif recipe.fold > 1:
         g = timeshare(g, recipe.fold)
     if delays is None:
         from ..cost.timing import delay_function

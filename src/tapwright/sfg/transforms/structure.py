@@ -32,9 +32,11 @@ from ..build import adder_tree, stage_nodes
 from ..graph import add_node, connect, copy_graph, operands, propagate
 
 
-def _fir_stages(g):
-    return sorted({d["stage"] for _, d in g.nodes(data=True)
-                   if d.get("role") == "mul" and "tap" in d and d.get("section") is None})
+def _fir_stages(g, stages=None):
+    """FIR stages of the graph (restricted to ``stages`` when given)."""
+    found = sorted({d["stage"] for _, d in g.nodes(data=True)
+                    if d.get("role") == "mul" and "tap" in d and d.get("section") is None})
+    return [s for s in found if stages is None or s in stages]
 
 
 def _stage_kind(g, s):
@@ -95,10 +97,10 @@ def _finalize(g, structure):
 # ---------------------------------------------------------------------------------------------
 
 
-def transpose(g):
+def transpose(g, stages=None):
     """Transposed form of every FIR stage (see module docstring)."""
     h = copy_graph(g)
-    for s in _fir_stages(h):
+    for s in _fir_stages(h, stages):
         if h.nodes[_round_node(h, s)].get("transposed"):
             continue
         nodes = [v for v in stage_nodes(h, s) if h.nodes[v].get("role") in
@@ -159,10 +161,10 @@ def _collapse_wires(h, s):
             changed = True
 
 
-def symmetric(g):
+def symmetric(g, stages=None):
     """Fold mirrored coefficients (pre-adders in direct form, shared products in transposed form)."""
     h = copy_graph(g)
-    for s in _fir_stages(h):
+    for s in _fir_stages(h, stages):
         st = h.graph["stages"][s]
         sym = st.symmetry()
         if sym == 0:
@@ -215,10 +217,10 @@ def _share_products(h, s, muls, L, sym):
     h.nodes[_round_node(h, s)]["folded"] = True
 
 
-def drop_zeros(g):
+def drop_zeros(g, stages=None):
     """Remove products by zero and collapse what they fed."""
     h = copy_graph(g)
-    for s in _fir_stages(h):
+    for s in _fir_stages(h, stages):
         zeros = [v for v in stage_nodes(h, s) if h.nodes[v].get("role") == "mul" and h.nodes[v]["coeff"] == 0]
         live = [v for v in stage_nodes(h, s) if h.nodes[v].get("role") == "mul" and h.nodes[v]["coeff"] != 0]
         if not zeros or not live:
@@ -273,10 +275,10 @@ def _prune_dead_taps(h, s):
                 changed = True
 
 
-def polyphase(g):
+def polyphase(g, stages=None):
     """Move each decimating FIR stage's rate change in front of its products."""
     h = copy_graph(g)
-    for s in _fir_stages(h):
+    for s in _fir_stages(h, stages):
         st = h.graph["stages"][s]
         M = st.decimation
         if M == 1 or h.nodes[_round_node(h, s)].get("transposed"):

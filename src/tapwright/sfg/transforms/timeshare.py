@@ -70,15 +70,23 @@ def product_terms(g, s):
     return terms
 
 
-def timeshare(g, K: int):
-    """Fold every FIR stage's products by ``K`` (see module docstring)."""
-    if K < 2:
+def timeshare(g, K):
+    """Fold FIR stages' products (see module docstring).
+
+    ``K`` is one factor for every FIR stage, or a dict ``{stage index: factor}``
+    (stages absent or with a factor below 2 stay unfolded).
+    """
+    Ks = K if isinstance(K, dict) else None
+    if Ks is None and K < 2:
         raise ValueError("a folding factor is at least 2")
     h = copy_graph(g)
     folded_any = False
     for s in sorted({d["stage"] for _, d in h.nodes(data=True) if d.get("role") == "mul"}):
         st = h.graph["stages"][s]
         if st.kind != "fir":
+            continue
+        K = Ks.get(s, 1) if Ks is not None else K
+        if K < 2:
             continue
         rnd = next(v for v in stage_nodes(h, s) if h.nodes[v].get("role") == "round")
         if h.nodes[rnd].get("transposed"):
@@ -99,12 +107,12 @@ def timeshare(g, K: int):
         for p in range(P):
             group = terms[p * K:(p + 1) * K]
             table = [t["coeff"] for t in group] + [0] * (K - len(group))
-            ma = add_node(h, "mux", name=f"s{s}_f{p}_xa", role="fold_mux", stage=s, group=p)
+            ma = add_node(h, "mux", name=f"s{s}_f{p}_xa", role="fold_mux", stage=s, group=p, steps=K)
             sel_a = _mux_ports(h, ma, [t["ops"][0] for t in group], K)
             h.nodes[ma]["select"] = tuple(sel_a)
             src = ma
             if two and any(len(t["ops"]) == 2 for t in group):
-                mb = add_node(h, "mux", name=f"s{s}_f{p}_xb", role="fold_mux", stage=s, group=p)
+                mb = add_node(h, "mux", name=f"s{s}_f{p}_xb", role="fold_mux", stage=s, group=p, steps=K)
                 # an odd-length centre product has one operand: its mirror is the zero port
                 ops_b = [t["ops"][1] if len(t["ops"]) == 2 else None for t in group]
                 sel_b = _mux_ports(h, mb, ops_b, K)
@@ -128,7 +136,8 @@ def timeshare(g, K: int):
     if not folded_any:
         raise ValueError("nothing to time-share")
     h = propagate(h)
-    h.graph["fold"] = K
+    h.graph["fold"] = max(Ks.values()) if Ks else K
+    h.graph["stage_folds"] = dict(Ks) if Ks else None
     h.graph["transforms"] = tuple(h.graph.get("transforms", ())) + ("timeshared",)
     h.graph["structure"] = "timeshared"
     return h
