@@ -458,7 +458,9 @@ def ls_taps_grid(spec, L, antisym: bool, npts: int | None = None):
         basis = 2 * np.cos(np.outer(om, kk))
         if L % 2 == 1:
             basis[:, -1] = 1.0          # centre tap
-    sol, *_ = np.linalg.lstsq(basis * wt[:, None], d * wt, rcond=None)
+    A = basis * wt[:, None]
+    # normal equations: the cosine/sine basis on a dense grid is close to orthogonal (well conditioned)
+    sol = np.linalg.solve(A.T @ A, A.T @ (d * wt))
     h = np.zeros(L)
     if antisym:
         h[: L // 2] = sol

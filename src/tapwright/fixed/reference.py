@@ -51,7 +51,13 @@ def fir_stage(stage: FirStage, x, in_fmt: Fmt, rounding: str, overflow_mode: str
     n = len(x)
     c = np.asarray([int(v) for v in stage.coeffs], dtype=object)
     keep = np.arange(stage.phase, n, stage.decimation)
-    if fir_acc_bits(stage.coeffs, in_fmt) <= INT64_SAFE_BITS and x.dtype != object:
+    acc_bits = fir_acc_bits(stage.coeffs, in_fmt)
+    if acc_bits <= 52 and x.dtype != object:
+        # every product and partial sum is an integer below 2**52: float64
+        # arithmetic is exact here, and NumPy's float convolution is the fast path
+        full = np.convolve(x.astype(np.float64), c.astype(np.float64))[:n]
+        acc = full[keep].astype(np.int64) if stage.decimation > 1 else full.astype(np.int64)
+    elif acc_bits <= INT64_SAFE_BITS and x.dtype != object:
         xi = x.astype(np.int64)
         ci = c.astype(np.int64)
         if stage.decimation == 1:
@@ -67,8 +73,6 @@ def fir_stage(stage: FirStage, x, in_fmt: Fmt, rounding: str, overflow_mode: str
                 acc[ok] += ck * xi[idx[ok]]
     else:
         acc = _conv_exact(x, c)[keep] if stage.decimation > 1 else _conv_exact(x, c)
-    if stage.decimation == 1:
-        pass
     y = requantize(acc, in_fmt.frac + stage.coeff_frac, stage.out, rounding, overflow_mode)
     return y
 
