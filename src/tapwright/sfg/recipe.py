@@ -17,6 +17,7 @@ from dataclasses import dataclass
 from ..fixed.stages import FixedDesign
 from . import build as _build
 from .transforms import pipeline as _pipe
+from .transforms import shiftadd as _sa
 from .transforms import structure as _st
 from .transforms.timeshare import timeshare
 
@@ -29,6 +30,8 @@ _TRANSFORM = {
     "halfband": _st.drop_zeros,
     "symmetric": _st.symmetric,
     "transposed": _st.transpose,
+    "shiftadd": _sa.shiftadd,
+    "shiftadd_mindepth": _sa.shiftadd_mindepth,
 }
 
 

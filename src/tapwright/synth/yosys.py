@@ -91,8 +91,9 @@ def _stage_source(verilog, top: str, wd: Path) -> list[str]:
     items = verilog if isinstance(verilog, (list, tuple)) else [verilog]
     names = []
     for i, item in enumerate(items):
-        if isinstance(item, os.PathLike) or (isinstance(item, str) and "\n" not in item
-                                             and item.strip().endswith((".v", ".sv"))):
+        looks_like_path = isinstance(item, str) and "\n" not in item and (
+            item.strip().endswith((".v", ".sv")) or Path(item).is_file())
+        if isinstance(item, os.PathLike) or looks_like_path:
             src = Path(item)
             if not src.is_file():
                 raise FileNotFoundError(f"Verilog source not found: {src}")
@@ -137,7 +138,12 @@ def _read_stat(path: Path, top: str) -> dict[str, int]:
     if block is None or "num_cells_by_type" not in block:
         mods = data.get("modules", {})
         block = mods.get("\\" + top) or mods.get(top) or next(iter(mods.values()), {})
-    return {k: int(v) for k, v in block.get("num_cells_by_type", {}).items()}
+    return {k: int(v) for k, v in block.get("num_cells_by_type", {}).items()
+            if k not in _NOT_CELLS}
+
+
+#: bookkeeping cell types that are no device resource (flatten leaves $scopeinfo behind)
+_NOT_CELLS = frozenset({"$scopeinfo"})
 
 
 def _netlist_cmd(netlist_out) -> tuple[str, Path | None]:

