@@ -46,6 +46,8 @@ class Candidate:
     cost: float = 0.0
     pareto: bool = False
     excess: dict = field(default_factory=dict)
+    fixed: FixedDesign | None = None
+    chain: object = None      # the ChainDesign of a multistage candidate
 
     @property
     def structure(self) -> str:
@@ -56,6 +58,15 @@ class Candidate:
         return self.recipe.label
 
     def as_json(self) -> dict:
+        d = self._json()
+        if self.recipe.stage_transforms is not None:
+            d["stages"] = self.recipe.stage_structures
+            if self.chain is not None:
+                d["chain"] = self.chain.name
+                d["mults_per_input"] = self.chain.mults_per_input
+        return d
+
+    def _json(self) -> dict:
         return {"structure": self.structure, "id": self.label, "feasible": self.feasible,
                 "estimate": self.estimate.as_dict(), "why": self.why,
                 "transforms": list(self.recipe.transforms), "fold": self.recipe.fold,
@@ -125,11 +136,17 @@ def base_transform_sets(fixed: FixedDesign):
     sym = all(s.symmetry() != 0 for s in firs)
     hb = all(_is_halfband(s) for s in firs)
     dec = any(s.decimation > 1 for s in firs)
-    out.append(("direct", (), "df1"))
-    out.append(("transposed", ("transposed",), "df1"))
+    big = max(len(s.coeffs) for s in firs) > LARGE_TAPS
+    if not big:
+        out.append(("direct", (), "df1"))
+        out.append(("transposed", ("transposed",), "df1"))
     if sym:
         out.append(("symmetric", ("symmetric",), "df1"))
-        out.append(("transposed", ("transposed", "symmetric"), "df1"))
+        if not big:
+            out.append(("transposed", ("transposed", "symmetric"), "df1"))
+    if not big and max(len(s.coeffs) for s in firs) <= SHIFTADD_TAPS:
+        # multiplierless: the transposed multiplier block as one shift-add graph
+        out.append(("shiftadd", ("transposed", "symmetric", "shiftadd") if sym else ("transposed", "shiftadd"), "df1"))
     if hb:
         out.append(("halfband", ("halfband", "symmetric"), "df1"))
     if dec:
@@ -139,6 +156,12 @@ def base_transform_sets(fixed: FixedDesign):
         if hb:
             out.append(("halfband", ("polyphase", "halfband", "symmetric"), "df1"))
     return out
+
+
+#: above this length only the reduced structures (symmetric, polyphase, time-shared) are explored
+LARGE_TAPS = 1023
+#: shift-add candidates for filters up to this length
+SHIFTADD_TAPS = 255
 
 
 def fold_factors(T: int, K_max: int) -> list[int]:
@@ -170,7 +193,7 @@ def recipes(fixed: FixedDesign, spec) -> list[Recipe]:
     # time-sharing over the most reduced non-transposed bases
     firs = _fir_stages(fixed)
     if firs and not {s.kind for s in fixed.stages} & {"sos"}:
-        reduced = [b for b in bases if "transposed" not in b[1]]
+        reduced = [b for b in bases if "transposed" not in b[1] and "shiftadd" not in b[1]]
         seen = set()
         for sid, tr, form in reduced:
             M = max(s.decimation for s in firs) if "polyphase" in tr else 1
@@ -239,18 +262,26 @@ def _pareto(cands):
 
 
 def explore(fixed: FixedDesign, spec, *, name: str | None = None) -> Exploration:
-    """Estimate every candidate; rank; pick the recommendation (or the closest miss)."""
+    """Estimate every candidate of one design; rank; pick the recommendation (or the closest miss)."""
+    return _rank(spec, [(fixed, r, None) for r in recipes(fixed, spec)], fixed, name=name)
+
+
+def _rank(spec, sources, lb_fixed, *, name=None) -> Exploration:
     C = spec.cycles_per_sample
     cands = []
-    seen = set()
-    for r in recipes(fixed, spec):
+    seen = {}
+    for fixed, r, chain in sources:
+        if r.label in seen:
+            continue
         g = realize(fixed, r, name=name or spec.name, delays=delay_function(spec.device))
         est = estimate(g, spec.device)
-        key = (r.label,)
-        if key in seen:
+        # a pipelining target that changes nothing is not a candidate of its own
+        sig = (id(fixed), r.structure, r.transforms, r.stage_transforms, r.fold, r.stage_folds,
+               est.dsp, est.lut, est.carry, est.ff, est.latency, est.fmax_mhz)
+        if sig in seen.values():
             continue
-        seen.add(key)
-        c = Candidate(r, est)
+        seen[r.label] = sig
+        c = Candidate(r, est, fixed=fixed, chain=chain)
         _check(c, spec)
         c.cost = _cost(est, spec)
         cands.append(c)
@@ -270,5 +301,68 @@ def explore(fixed: FixedDesign, spec, *, name: str | None = None) -> Exploration
                 tot += v / max(1, scale)
             return (tot, c.cost)
         closest = min(cands, key=badness)
-    lb = products_lower_bound(fixed, C)
+    lb = products_lower_bound(lb_fixed, C) if lb_fixed is not None else 0
     return Exploration(cands, rec, closest, lb, C)
+
+
+def _chain_stage_transforms(fixed: FixedDesign, stages_desc=None):
+    out = []
+    for i, st in enumerate(fixed.stages):
+        if st.kind == "cic":
+            out.append(("cic",))
+            continue
+        if st.kind != "fir":
+            out.append(())
+            continue
+        tr = []
+        if st.decimation > 1:
+            tr.append("polyphase")
+        if _is_halfband(st):
+            tr += ["halfband", "symmetric"]
+        elif st.symmetry() != 0:
+            tr.append("symmetric")
+        out.append(tuple(tr))
+    return tuple(out)
+
+
+def chain_recipes(fixed: FixedDesign, spec, tag: str) -> list[Recipe]:
+    """Unfolded, folded-to-the-clock, pipelined variants of one chain."""
+    dev = spec.device
+    C = spec.cycles_per_sample
+    st_tr = _chain_stage_transforms(fixed)
+    base = Recipe("chain", stage_transforms=st_tr, delay_model=dev, tag=tag)
+    g = realize(fixed, Recipe("chain", stage_transforms=st_tr, register_output=False, delay_model=dev, tag=tag))
+    folds = []
+    rate = 1
+    any_fold = False
+    for i, st in enumerate(fixed.stages):
+        if st.kind == "fir":
+            T = sum(1 for _, n in g.nodes(data=True)
+                    if n["kind"] == "mul" and n.get("stage") == i and not is_free_coeff(n["coeff"]))
+            k_max = C * rate * (st.decimation if "polyphase" in st_tr[i] else 1)
+            K = min(T, k_max)
+            folds.append(K if K >= 2 else 1)
+            any_fold |= K >= 2
+        else:
+            folds.append(1)
+        rate *= getattr(st, "decimation", 1)
+    per = target_period(dev, spec.clock)
+    out = [base, Recipe("chain", stage_transforms=st_tr, period=per, delay_model=dev, tag=tag)]
+    if any_fold:
+        out.append(Recipe("chain", stage_transforms=st_tr, stage_folds=tuple(folds), delay_model=dev, tag=tag))
+        out.append(Recipe("chain", stage_transforms=st_tr, stage_folds=tuple(folds), period=per,
+                          delay_model=dev, tag=tag))
+    return out
+
+
+def explore_all(spec, single_fixed: FixedDesign | None, chains=(), *, name: str | None = None) -> Exploration:
+    """Single-stage candidates and every chain's candidates, ranked together."""
+    sources = []
+    if single_fixed is not None:
+        sources += [(single_fixed, r, None) for r in recipes(single_fixed, spec)]
+    for ch in chains:
+        if not ch.ok:
+            continue
+        sources += [(ch.fixed, r, ch) for r in chain_recipes(ch.fixed, spec, ch.name)]
+    return _rank(spec, sources, single_fixed if single_fixed is not None else
+                 (chains[0].fixed if chains else None), name=name)

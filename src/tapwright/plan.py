@@ -12,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from . import CAUTION
-from .explore import Exploration, explore
+from .explore import Exploration, explore_all
 
 
 @dataclass
@@ -21,6 +21,7 @@ class PlanResult:
     design: object          # tapwright.design.plan.DesignPlan
     exploration: Exploration | None
     error: str = ""
+    chains: list = None
 
     @property
     def ok(self) -> bool:
@@ -40,6 +41,7 @@ class PlanResult:
              "closest": ex.closest.label if ex and ex.closest else None,
              "dsp_lower_bound": ex.lower_bound if ex else None,
              "cycles_per_sample": ex.cycles_per_sample if ex else None,
+             "chains": [c.as_dict() for c in (self.chains or [])],
              "ok": self.ok,
              "caution": CAUTION}
         if self.error:
@@ -51,13 +53,18 @@ def plan(spec, *, design=None) -> PlanResult:
     """Design (unless ``design`` is given) and explore."""
     from .design.plan import DesignError, make_design
 
+    from .design.chain import chain_applicable, plan_chains
+
     if design is None:
         try:
             design = make_design(spec)
         except DesignError as e:
             return PlanResult(spec, None, None, error=str(e))
-    ex = explore(design.fixed, spec)
-    return PlanResult(spec, design, ex)
+    chains = []
+    if spec.decimation >= 4 and chain_applicable(spec)[0]:
+        chains = [c for c in plan_chains(spec) if c.ok]
+    ex = explore_all(spec, design.fixed, chains)
+    return PlanResult(spec, design, ex, chains=chains)
 
 
 # ----------------------------------------------------------------------------------------------

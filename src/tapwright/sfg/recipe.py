@@ -54,9 +54,39 @@ class Recipe:
     delay_model: str = "generic"
     stage_transforms: tuple | None = None
     stage_folds: tuple | None = None
+    tag: str = ""
+
+    @property
+    def stage_structures(self) -> list[str]:
+        """Structure id of each stage of a chain (contract: plan --json ``stages``)."""
+        if self.stage_transforms is None:
+            return []
+        out = []
+        for i, tr in enumerate(self.stage_transforms):
+            fold = self.stage_folds[i] if self.stage_folds else 1
+            if "cic" in tr:
+                out.append("cic")
+            elif fold > 1:
+                out.append("timeshared")
+            elif "halfband" in tr:
+                out.append("halfband")
+            elif "polyphase" in tr:
+                out.append("polyphase")
+            elif "symmetric" in tr:
+                out.append("symmetric")
+            else:
+                out.append("direct")
+        return out
 
     @property
     def label(self) -> str:
+        if self.stage_transforms is not None:
+            lab = "chain:" + (self.tag or "+".join(self.stage_structures))
+            if self.stage_folds and any(k > 1 for k in self.stage_folds):
+                lab += "/k" + ".".join(str(k) for k in self.stage_folds)
+            if self.period is not None:
+                lab += f"/p{self.period:.3g}"
+            return lab
         parts = [self.structure]
         extra = [t for t in self.transforms if t != self.structure]
         if self.structure == "halfband":
@@ -66,7 +96,7 @@ class Recipe:
         if self.fold > 1:
             parts.append(f"/k{self.fold}")
         if self.period is not None:
-            parts.append(f"/p{self.period:g}")
+            parts.append(f"/p{self.period:.3g}")
         return "".join(parts)
 
     def as_dict(self) -> dict:
@@ -74,7 +104,8 @@ class Recipe:
                 "period": self.period, "register_output": self.register_output, "sos_form": self.sos_form,
                 "delay_model": self.delay_model,
                 "stage_transforms": None if self.stage_transforms is None else [list(t) for t in self.stage_transforms],
-                "stage_folds": None if self.stage_folds is None else list(self.stage_folds)}
+                "stage_folds": None if self.stage_folds is None else list(self.stage_folds),
+                "tag": self.tag}
 
     @staticmethod
     def from_dict(d: dict) -> "Recipe":
@@ -84,7 +115,8 @@ class Recipe:
                       sos_form=d.get("sos_form", "df1"), delay_model=d.get("delay_model", "generic"),
                       stage_transforms=None if d.get("stage_transforms") is None
                       else tuple(tuple(t) for t in d["stage_transforms"]),
-                      stage_folds=None if d.get("stage_folds") is None else tuple(d["stage_folds"]))
+                      stage_folds=None if d.get("stage_folds") is None else tuple(d["stage_folds"]),
+                      tag=d.get("tag", ""))
 
 
 def realize(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays=None):
@@ -96,7 +128,7 @@ def realize(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays
             g = _TRANSFORM[t](g)
     else:
         # per stage (a chain): each transform on the stages that list it, in canonical order
-        order = [t for t in _TRANSFORM if any(t in st for st in recipe.stage_transforms)]
+        order = [t for t in _TRANSFORM if any(t in st for st in recipe.stage_transforms)]  # "cic" is a marker
         for t in order:
             which = {i for i, st in enumerate(recipe.stage_transforms) if t in st}
             g = _TRANSFORM[t](g, stages=which)
