@@ -187,25 +187,31 @@ def recipes(fixed: FixedDesign, spec) -> list[Recipe]:
     period_target = target_period(dev, spec.clock)
     out = []
     bases = base_transform_sets(fixed)
-    for sid, tr, form in bases:
-        for per in (None, period_target):
+    firs = _fir_stages(fixed)
+    big = bool(firs) and max(len(s.coeffs) for s in firs) > LARGE_TAPS
+    for sid, tr, form in (bases[-1:] if big else bases):
+        for per in ((period_target,) if big else (None, period_target)):
             out.append(Recipe(sid, tr, period=per, sos_form=form, delay_model=dev))
     # time-sharing over the most reduced non-transposed bases
-    firs = _fir_stages(fixed)
     if firs and not {s.kind for s in fixed.stages} & {"sos"}:
         reduced = [b for b in bases if "transposed" not in b[1] and "shiftadd" not in b[1]]
+        if big:  # long filters: only the most reduced base, folded as far as the clock allows
+            reduced = reduced[-1:]
         seen = set()
         for sid, tr, form in reduced:
             M = max(s.decimation for s in firs) if "polyphase" in tr else 1
             K_max = C * M
             g = realize(fixed, Recipe(sid, tr, register_output=False, delay_model=dev))
             T = sum(1 for _, n in g.nodes(data=True) if n["kind"] == "mul" and not is_free_coeff(n["coeff"]))
-            for K in fold_factors(T, K_max):
+            Ks = fold_factors(T, K_max)
+            if big:
+                Ks = Ks[-1:]
+            for K in Ks:
                 key = (tr, K)
                 if key in seen:
                     continue
                 seen.add(key)
-                for per in (None, period_target):
+                for per in ((period_target,) if big else (None, period_target)):
                     out.append(Recipe("timeshared", tr, fold=K, period=per, delay_model=dev))
     return out
 
