@@ -10,8 +10,6 @@ from __future__ import annotations
 import json
 import re
 import shutil
-import subprocess
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -132,6 +130,12 @@ CASES = {
                                     rounding="truncate", overflow="wrap"), Recipe("cic", period=1)),
     "chain_cic_fir": (chain_design(), Recipe("chain", ("polyphase", "symmetric"), period=2)),
     "chain_cic_fir_folded": (chain_design(), Recipe("chain", ("symmetric",), fold=3)),
+    "chain_per_stage_folds": (chain_design(), Recipe("chain", stage_transforms=((), ("polyphase", "symmetric")),
+                                                     stage_folds=(1, 3), period=2)),
+    "chain_two_firs_two_folds": (FixedDesign((
+        FirStage(SYM_ODD, 10, Fmt(14, 11), decimation=2, phase=1),
+        FirStage(_coeffs(12, 1), 10, Fmt(16, 11))), Fmt(12, 11), "half_even", "saturate"),
+        Recipe("chain", stage_transforms=(("polyphase", "symmetric"), ("symmetric",)), stage_folds=(2, 3))),
 }
 
 

@@ -120,9 +120,11 @@ def write_design_folder(out_dir, *, name: str, fixed: FixedDesign, recipe: Recip
                         report_writer=None, samples: int | None = None) -> Path:
     """Realize, lower and write the design folder ``out_dir`` atomically; returns its path.
 
-    ``report_writer(tmpdir, sheet)`` (optional) writes the human report into
-    the temporary folder before it is renamed into place and may return a dict
-    of extra sheet fields (for example ``{"report": "report.md"}``).
+    ``report_writer(tmpdir, sheet)`` or ``report_writer(tmpdir)`` (optional)
+    writes the human report into the temporary folder before it is renamed
+    into place; it may return a dict of extra sheet fields (for example
+    ``{"report": "report.md"}``) or the report's file name. If it raises,
+    nothing is written.
     """
     from .rtl.emit import emit_verilog
     from .sfg.graph import output_node
@@ -164,9 +166,11 @@ def write_design_folder(out_dir, *, name: str, fixed: FixedDesign, recipe: Recip
         script.write_text(_run_script(name, vectors))
         script.chmod(0o755)
         if report_writer is not None:
-            more = report_writer(tmp, sheet)
+            more = _call_report_writer(report_writer, tmp, sheet)
             if isinstance(more, dict):
                 sheet.update(more)
+            elif isinstance(more, str):
+                sheet["report"] = more
         (tmp / "design.json").write_text(json.dumps(sheet, indent=2, sort_keys=True) + "\n")
         if out.exists():
             old = parent / f".{out.name}.old-{os.getpid()}"
@@ -181,6 +185,19 @@ def write_design_folder(out_dir, *, name: str, fixed: FixedDesign, recipe: Recip
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return out
+
+
+def _call_report_writer(fn, tmp, sheet):
+    """``fn(tmpdir, sheet)``, or ``fn(tmpdir)`` for a one-argument writer."""
+    import inspect
+    try:
+        params = [p for p in inspect.signature(fn).parameters.values()
+                  if p.kind in (p.POSITIONAL_ONLY, p.POSITIONAL_OR_KEYWORD, p.VAR_POSITIONAL)]
+    except (TypeError, ValueError):
+        params = [None, None]
+    if len(params) == 1 and params[0].kind != params[0].VAR_POSITIONAL:
+        return fn(tmp)
+    return fn(tmp, sheet)
 
 
 # ------------------------------------------------------------------------------------------------

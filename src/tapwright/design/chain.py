@@ -535,38 +535,161 @@ def _taps_from_half(x, L):
     return h
 
 
+def _lp_solve(Sw, bw, nh):
+    """min t s.t. Sw x - t <= bw (one row per signed grid point): (x, t) or None."""
+    from scipy.optimize import linprog
+
+    A = np.empty((len(bw), nh + 1))
+    A[:, :nh] = Sw
+    A[:, nh] = -1.0
+    cost = np.zeros(nh + 1)
+    cost[-1] = 1.0
+    bounds = [(None, None)] * nh + [(0, None)]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = linprog(cost, A_ub=A, b_ub=bw, bounds=bounds, method="highs")
+    if not res.success:
+        return None
+    return res.x[:nh], float(res.x[-1])
+
+
+def _lp_rows(Bw, dw, up, dn, nh):
+    """The LP on the signed rows: +(B x - d) <= t where ``up``, -(B x - d) <= t where ``dn``."""
+    iu, idn = np.flatnonzero(up), np.flatnonzero(dn)
+    return _lp_solve(np.vstack([Bw[iu], -Bw[idn]]), np.concatenate([dw[iu], -dw[idn]]), nh)
+
+
+#: relative slack of the exchange LP's stopping test (whole-grid error <= (1 + tol) x subset optimum)
+LP_EXCHANGE_TOL = 1e-7
+#: at most this many exchange rounds before the LP on the whole grid is solved instead
+LP_EXCHANGE_ROUNDS = 40
+#: in the first rounds the rows whose error is far from the current optimum are dropped again
+LP_EXCHANGE_DROP_ROUNDS = 12
+#: ... i.e. the rows whose signed error is below this fraction of the optimum
+LP_EXCHANGE_KEEP = 0.9
+
+
+def _local_peaks(e, viol):
+    """Indices of the local maxima of |e| (within one band) that exceed ``viol``."""
+    a = np.abs(e)
+    if len(a) < 3:
+        return np.flatnonzero(a > viol)
+    left = np.concatenate([[True], a[1:] >= a[:-1]])
+    right = np.concatenate([a[:-1] >= a[1:], [True]])
+    return np.flatnonzero(left & right & (a > viol))
+
+
+def _minimax_core(L, fs, bands, npts=None, stop_above=None, hint=None):
+    """:func:`minimax_fir` by exchange; also returns the frequencies of the error peaks.
+
+    ``stop_above``: give up as soon as a subset optimum (a lower bound of the whole-grid optimum)
+    exceeds it; the returned t is then that lower bound (> stop_above). ``hint``: frequencies
+    (e.g. the error peaks of a neighbouring length) added to the first subset.
+    Returns (taps, t, peak_freqs) or (None, inf, None).
+    """
+    nyq = fs / 2
+    npts = npts or max(1024, 24 * L)
+    nh = (L + 1) // 2
+    Bs, ds, segs, fr = [], [], [], []
+    pos = 0
+    for lo, hi, c_fn, des, dl in bands:
+        n = max(16, int(math.ceil(npts * (hi - lo) / nyq)))
+        f = np.linspace(lo, hi, n)
+        c = np.ones(n) if c_fn is None else np.asarray(c_fn(f), float)
+        Bs.append(_amp_basis(L, f, fs) * (c / dl)[:, None])
+        ds.append(np.full(n, des / dl))
+        segs.append((pos, pos + n))
+        fr.append(f)
+        pos += n
+    Bw = np.vstack(Bs)
+    dw = np.concatenate(ds)
+    fgrid = np.concatenate(fr)
+    ntot = len(dw)
+    mask = np.zeros(ntot, bool)
+    # first subset: about three points per coefficient (one per two with a hint), spread over the
+    # bands by width, every band edge included
+    if hint is not None and len(hint) < (nh + 1) // 2:
+        hint = None             # too few peaks to stand for an equiripple error
+    m0 = (nh + 1) // 2 if hint is not None else 3 * (nh + 1)
+    if m0 >= ntot // 2:
+        mask[:] = True
+    else:
+        width = sum(max(hi - lo, 0.0) for lo, hi, *_ in bands) or 1.0
+        for (lo, hi, *_), (s0, s1) in zip(bands, segs):
+            k = max(4, int(math.ceil(m0 * (hi - lo) / width)))
+            mask[np.round(np.linspace(s0, s1 - 1, min(k, s1 - s0))).astype(int)] = True
+        if hint is not None:
+            for (s0, s1), f in zip(segs, fr):
+                hb = np.asarray([x for x in hint if f[0] <= x <= f[-1]], float)
+                if len(hb):
+                    mask[s0 + np.clip(np.searchsorted(f, hb), 0, s1 - s0 - 1)] = True
+    up, dn = mask.copy(), mask.copy()
+    x = None
+    for rnd in range(LP_EXCHANGE_ROUNDS):
+        r = _lp_rows(Bw, dw, up, dn, nh)
+        if r is None:
+            x = None
+            break
+        x, ts = r
+        e = Bw @ x - dw
+        t_all = float(np.max(np.abs(e)))
+        if stop_above is not None and ts > stop_above:
+            peaks = np.concatenate([s0 + _local_peaks(e[s0:s1], 0.5 * ts) for s0, s1 in segs])
+            return _taps_from_half(x, L), ts, fgrid[peaks]
+        viol = ts * (1 + LP_EXCHANGE_TOL)
+        if t_all <= viol or (up.all() and dn.all()):
+            break
+        new = np.concatenate([s0 + _local_peaks(e[s0:s1], viol) for s0, s1 in segs])
+        if not len(new):
+            new = np.flatnonzero(np.abs(e) > viol)
+        pos = new[e[new] > 0]
+        neg = new[e[new] < 0]
+        if up[pos].all() and dn[neg].all():
+            # nothing new although the grid is violated (numerical trouble): every violated row, both signs
+            big = np.abs(e) > viol
+            if (up[big].all() and dn[big].all()):
+                break
+            up |= big
+            dn |= big
+        if rnd < LP_EXCHANGE_DROP_ROUNDS:
+            # keep the subset small: drop the rows far from active (any subset still gives a lower bound)
+            up &= e > LP_EXCHANGE_KEEP * ts
+            dn &= e < -LP_EXCHANGE_KEEP * ts
+        up[pos] = True
+        dn[neg] = True
+    else:
+        x = None
+    if x is None:
+        # fall back: the LP on the whole grid
+        everywhere = np.ones(ntot, bool)
+        r = _lp_rows(Bw, dw, everywhere, everywhere, nh)
+        if r is None:
+            return None, math.inf, None
+        x, ts = r
+        e = Bw @ x - dw
+        t_all = float(np.max(np.abs(e)))
+    peaks = np.concatenate([s0 + _local_peaks(e[s0:s1], 0.5 * ts) for s0, s1 in segs])
+    return _taps_from_half(x, L), t_all, fgrid[peaks]
+
+
 def minimax_fir(L, fs, bands, npts=None):
     """Symmetric length-L FIR minimising max_i W_i |C_i A(f_i) - D_i| by linear programming.
 
     ``bands``: list of (lo, hi, c_fn, desired, delta): on [lo, hi] require
     |c(f) A(f) - desired| <= delta (c_fn None means c = 1). Returns (taps, t)
     with t <= 1 when every band is met on the grid, or (None, inf).
-    """
-    from scipy.optimize import linprog
 
-    nyq = fs / 2
-    npts = npts or max(1024, 24 * L)
-    rows, rhs = [], []
-    for lo, hi, c_fn, des, dl in bands:
-        n = max(16, int(math.ceil(npts * (hi - lo) / nyq)))
-        f = np.linspace(lo, hi, n)
-        c = np.ones(n) if c_fn is None else np.asarray(c_fn(f), float)
-        B = _amp_basis(L, f, fs) * (c / dl)[:, None]
-        d = np.full(n, des / dl)
-        rows += [np.hstack([B, -np.ones((n, 1))]), np.hstack([-B, -np.ones((n, 1))])]
-        rhs += [d, -d]
-    A = np.vstack(rows)
-    b = np.concatenate(rhs)
-    nh = (L + 1) // 2
-    cost = np.zeros(nh + 1)
-    cost[-1] = 1.0
-    bounds = [(None, None)] * nh + [(0, None)]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        res = linprog(cost, A_ub=A, b_ub=b, bounds=bounds, method="highs")
-    if not res.success:
-        return None, math.inf
-    return _taps_from_half(res.x[:nh], L), float(res.x[-1])
+    The grid is ``npts`` points over [0, fs/2] (default max(1024, 24 L)), spread over the bands in
+    proportion to their widths. The LP on the whole grid (a dense 2n x (L/2 + 1) system) is slow at
+    long lengths, so it is solved by exchange (cutting planes): first on a subset of the grid
+    (about three points per coefficient, band edges included), then the local maxima of the
+    error on the whole grid that exceed the subset's optimum t_s are added, until the whole-grid
+    error is within (1 + LP_EXCHANGE_TOL) t_s. A subset's optimum is a lower bound of the
+    whole-grid optimum, so the result is the whole-grid minimax to that tolerance; the returned t
+    is the largest weighted error over the whole grid.
+    """
+    h, t, _ = _minimax_core(L, fs, bands, npts)
+    return h, t
 
 
 # ---------------------------------------------------------------------------------------------
@@ -783,11 +906,17 @@ def _comp_stage(spec, req, fp, cic_N, cic_R, F_cic_in, tag) -> _StageResult:
     dp = sspec.bands[0].deviation()
     bands = [(0.0, fp, C_fn, 1.0, dp)] + [(b.lo, b.hi, None, 0.0, b.deviation(1.0)) for b in sspec.bands[1:]]
     designs = {}
+    peaks = {}
 
     def ok(L):
+        # minimax by exchange LP (see minimax_fir); seeded with the error peaks of the nearest length
+        # already solved, and stopped as soon as a lower bound of the optimum shows t > 1
         if L < 3:
             return False
-        h, t = minimax_fir(L, F_in, bands)
+        near = min(peaks, key=lambda k: abs(k - L), default=None)
+        h, t, pk = _minimax_core(L, F_in, bands, stop_above=1.0, hint=peaks.get(near))
+        if pk is not None:
+            peaks[L] = pk
         if h is None or t > 1.0:
             return False
         designs[L] = h

@@ -127,8 +127,11 @@ def make_plots(folder: Path, *, spec, plan, fixed, candidates, chosen) -> list[s
 
     from scipy import signal
     wg = np.linspace(0, np.pi, 1024, endpoint=False)
+    import warnings
     try:
-        _, gd = signal.group_delay((h, [1.0]), w=wg)
+        with warnings.catch_warnings(), np.errstate(all="ignore"):
+            warnings.simplefilter("ignore")
+            _, gd = signal.group_delay((h, [1.0]), w=wg)
     except Exception:
         gd = np.zeros_like(wg)
     fig, ax = plt.subplots(figsize=(7, 2.8))

@@ -50,7 +50,9 @@ previous samples); delay lines are state and are cleared by ``rst``.
 chain per (source, z, kind of tap) shared by all readers; the valid bits are
 pipelined alongside and cleared by ``rst``.
 
-*Time-shared (folded) graphs*, ``graph["fold"] = K > 1``. An iteration starts
+*Time-shared (folded) graphs*: multiplexers with ``steps`` K > 1 (one K per
+folded stage; the cone of multiplexers, table products and accumulators that
+one strobe starts shares one step counter). An iteration starts
 at a strobe of the multiplexers' source domain (cycle t). At edge t+1 each
 source read by a ``mux`` shifts its line, whose element z then holds the
 sample z back (the "captured" line C_0..C_maxz: it is the source's delay line,
@@ -104,13 +106,13 @@ def _sname(s: str) -> str:
 #              ("c", root, d) a time-shared cone whose steps start 1 cycle after root's strobe + d.
 
 
-def _fold_tag(kind, tag, d):
-    return (kind, tag[1], tag[2] + d)
+def _mux_steps(g, v) -> int:
+    n = g.nodes[v]
+    return int(n.get("steps", len(n["select"])))
 
 
 def timing_of(g) -> dict:
     """Timing tag of every node (see the module docstring); raises GraphError when inconsistent."""
-    K = int(g.graph.get("fold", 1))
     tag: dict = {}
     order = eval_order(g)
     changed = True
@@ -138,14 +140,15 @@ def timing_of(g) -> dict:
             elif k == "mux":
                 if t[0] != "s":
                     raise GraphError(f"multiplexer {v} fed by a time-shared cone")
+                K = _mux_steps(g, v)
                 if K < 2:
                     raise GraphError(f"multiplexer {v} in a graph without a fold factor")
-                t = ("c", t[1], t[2])
+                t = ("c", (t[1], K), t[2])
             elif k == "acc":
                 if t[0] != "c":
                     raise GraphError(f"accumulator {v} not fed by a time-shared cone")
-                if int(n["steps"]) != K:
-                    raise GraphError(f"accumulator {v} has {n['steps']} steps, the fold is {K}")
+                if int(n["steps"]) != t[1][1]:
+                    raise GraphError(f"accumulator {v} has {n['steps']} steps, its multiplexers {t[1][1]}")
                 t = ("s", ("acc", t[1]), t[2])
             tag[v] = t
             changed = True
@@ -216,7 +219,6 @@ class _Lowering:
         self.top = top
         self.g = g = top.g
         self.m = m = Module()
-        self.K = top.fold
         self.tags = top.tags
         self.rst = ResetSignal("sync")
         self._strobe_memo: dict = {}
@@ -288,7 +290,8 @@ class _Lowering:
             r, F, P = root[1], root[2], root[3]
             return f"{self._root_name(r)}_dec{F}p{P}"
         if root[0] == "acc":
-            return f"{self._root_name(root[1])}_acc"
+            (r, K) = root[1]
+            return f"{self._root_name(r)}_k{K}_acc"
         return "x"
 
     def _root_strobe(self, root, d):
@@ -312,7 +315,7 @@ class _Lowering:
         if root[0] == "acc":
             active, step = self.cone(root[1], d)
             s = Signal(name=f"stb_{nm}_d{d}")
-            m.d.sync += s.eq(active & (step == self.K - 1))
+            m.d.sync += s.eq(active & (step == root[1][1] - 1))
             return s
         raise GraphError(f"unknown strobe root {root}")
 
@@ -322,10 +325,11 @@ class _Lowering:
         if key in self._cone_memo:
             return self._cone_memo[key]
         base = self._cone_base[root]
-        m, K = self.m, self.K
-        nm = self._root_name(root)
+        r, K = root
+        m = self.m
+        nm = f"{self._root_name(r)}_k{K}"
         if d == base:
-            src = self.strobe(("s", root, d))
+            src = self.strobe(("s", r, d))
             active = Signal(name=f"act_{nm}_d{d}")
             step = Signal(range(K), name=f"step_{nm}_d{d}")
             with m.If(src):

