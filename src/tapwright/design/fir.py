@@ -513,15 +513,64 @@ def kaiser_taps(spec, L, beta, antisym=False):
                           antisymmetric=antisym)
 
 
-def halfband_taps(spec, K):
-    """Vaidyanathan-Nguyen halfband of length 4K-1 from a length-2K type II prototype."""
-    p = spec.bands[0]
-    fs = spec.sample_rate
+#: scipy's remez grid has about 16 points per extremal over [0, fs/2]: a one-band prototype on
+#: [0, 2 f_pass] gets fewer grid points than extremals when f_pass / fs < 1/64 (NaN taps, or worse)
+_HB_REMEZ_MIN_FRAC = 1.0 / 64
+
+
+def _halfband_prototype_lp(K, band_hi, fs):
+    """Type II prototype of length 2K minimising max |G - 1| on [0, band_hi] (dense-grid LP), or None.
+
+    Own fallback for :func:`halfband_taps` where the one-band remez fails: the amplitude is
+    G(w) = sum_k 2 g_k cos((k - 1/2) w), k = 1..K, and min t s.t. |G(w_j) - 1| <= t on the grid;
+    a least-squares fit (SVD) when the LP fails.
+    """
+    from scipy.optimize import linprog
+
+    n = max(64, 32 * K)
+    w = 2 * np.pi * np.linspace(0.0, band_hi, n) / fs
+    B = 2 * np.cos(np.outer(w, np.arange(K, 0, -1) - 0.5))    # columns: taps 0..K-1 (distance K-1/2 .. 1/2)
+    ones = np.ones(n)
+    A = np.vstack([np.hstack([B, -ones[:, None]]), np.hstack([-B, -ones[:, None]])])
+    cost = np.zeros(K + 1)
+    cost[-1] = 1.0
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         try:
-            g = signal.remez(2 * K, [0.0, 2 * p.hi], [1.0], weight=[1.0], fs=fs, maxiter=40)
+            res = linprog(cost, A_ub=A, b_ub=np.concatenate([ones, -ones]),
+                          bounds=[(None, None)] * K + [(0, None)], method="highs")
+            x = res.x[:K] if res.success else None
         except Exception:  # noqa: BLE001
+            x = None
+    if x is None or not np.all(np.isfinite(x)):
+        x = np.linalg.lstsq(B, ones, rcond=None)[0]
+    if not np.all(np.isfinite(x)):
+        return None
+    return np.concatenate([x, x[::-1]])
+
+
+def halfband_taps(spec, K):
+    """Vaidyanathan-Nguyen halfband of length 4K-1 from a length-2K type II prototype.
+
+    The prototype is remez's one-band design; for very wide transitions (f_pass / fs < 1/64, where
+    remez's grid is too coarse for the band) or when remez fails or returns non-finite taps, the
+    same minimax problem is solved by a small linear program instead
+    (:func:`_halfband_prototype_lp`). Every other tap is exactly zero and the centre exactly 1/2
+    either way.
+    """
+    p = spec.bands[0]
+    fs = spec.sample_rate
+    g = None
+    if p.hi / fs >= _HB_REMEZ_MIN_FRAC:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                g = signal.remez(2 * K, [0.0, 2 * p.hi], [1.0], weight=[1.0], fs=fs, maxiter=40)
+            except Exception:  # noqa: BLE001
+                g = None
+    if g is None or not np.all(np.isfinite(g)):
+        g = _halfband_prototype_lp(K, 2 * p.hi, fs)
+        if g is None:
             return None
     h = np.zeros(4 * K - 1)
     h[0::2] = g / 2.0
