@@ -294,3 +294,23 @@ atten_db = 50
     d = fir.design_fir(spec)
     assert d.method == "least_squares" and d.notes
     assert meets_independently(d.taps, spec)
+
+
+@pytest.mark.parametrize("fp", [0.01, 0.004, 0.001])
+def test_halfband_taps_very_wide_transition(fp):
+    """One-band remez fails for a very narrow prototype band (NaN taps, even crashes): the fallback
+    still gives finite taps, exact zeros, centre 1/2, and meets the spec."""
+    spec = lowpass(fp, 0.5 - fp, 0.001, 100)
+    assert fir.halfband_eligible(spec)
+    for K in (1, 2, 3, 4, 6):
+        h = fir.halfband_taps(spec, K)
+        assert h is not None and np.all(np.isfinite(h))
+        L = len(h)
+        assert L == 4 * K - 1
+        c = (L - 1) // 2
+        assert h[c] == 0.5
+        assert all(h[i] == 0.0 for i in range(1, L, 2) if i != c)
+        np.testing.assert_array_equal(h, h[::-1])
+    d = fir.design_fir(spec)
+    assert d.halfband and np.all(np.isfinite(d.taps))
+    assert meets_independently(d.taps, spec)

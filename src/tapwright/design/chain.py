@@ -50,7 +50,12 @@ Stage kinds
   C the CIC's normalized sinc^N response, A the compensator's amplitude,
   |A| <= t delta_s on its Stop_i and |A| <= t delta_loose on the don't-care
   bands; t <= 1 means met. So the pair CIC x compensator is flat over the pass
-  band to its ripple share. The CIC gain (RM)^N is normalised here: the
+  band to its ripple share. The LP on the whole dense grid is slow at a few
+  hundred taps, so it is solved by exchange (cutting planes, :func:`minimax_fir`):
+  LPs on small subsets of the grid, each adding the whole-grid error peaks, until
+  the whole-grid error is within 1e-7 (relative) of the subset's optimum. In the
+  length search each length starts from the error peaks of the nearest length
+  already solved and stops as soon as a subset optimum (a lower bound) exceeds 1. The CIC gain (RM)^N is normalised here: the
   compensator's coefficients are scaled by 1/(RM)^N before quantization (for a
   power of two: the same integers, coeff_frac + log2 G).
 - Halfband (/2): Vaidyanathan & Nguyen's construction (design helper's
@@ -636,7 +641,7 @@ def _minimax_core(L, fs, bands, npts=None, stop_above=None, hint=None):
         if stop_above is not None and ts > stop_above:
             peaks = np.concatenate([s0 + _local_peaks(e[s0:s1], 0.5 * ts) for s0, s1 in segs])
             return _taps_from_half(x, L), ts, fgrid[peaks]
-        viol = ts * (1 + LP_EXCHANGE_TOL)
+        viol = ts * (1 + LP_EXCHANGE_TOL) + 1e-12
         if t_all <= viol or (up.all() and dn.all()):
             break
         new = np.concatenate([s0 + _local_peaks(e[s0:s1], viol) for s0, s1 in segs])
@@ -645,12 +650,10 @@ def _minimax_core(L, fs, bands, npts=None, stop_above=None, hint=None):
         pos = new[e[new] > 0]
         neg = new[e[new] < 0]
         if up[pos].all() and dn[neg].all():
-            # nothing new although the grid is violated (numerical trouble): every violated row, both signs
-            big = np.abs(e) > viol
-            if (up[big].all() and dn[big].all()):
-                break
-            up |= big
-            dn |= big
+            # no new peak although the grid is violated: every violated row instead
+            pos, neg = np.flatnonzero(e > viol), np.flatnonzero(e < -viol)
+            if up[pos].all() and dn[neg].all():
+                break           # numerically stuck: keep this solution (t is its whole-grid error)
         if rnd < LP_EXCHANGE_DROP_ROUNDS:
             # keep the subset small: drop the rows far from active (any subset still gives a lower bound)
             up &= e > LP_EXCHANGE_KEEP * ts

@@ -111,6 +111,19 @@ def _mux_steps(g, v) -> int:
     return int(n.get("steps", len(n["select"])))
 
 
+def _canon(t):
+    """A tag with accumulator roots unfolded: the done pulse of a cone started by
+    strobe (r, d) with K steps is that strobe K+1 cycles later, so
+    ("s", ("acc", (r, K)), d) is the same pulse as ("s", r, d + K + 1)."""
+    kind, root, d = t
+    if kind == "s" and isinstance(root, tuple) and root and root[0] == "acc":
+        r, K = root[1]
+        return _canon(("s", r, d + K + 1))
+    if kind == "s" and isinstance(root, tuple) and root and root[0] == "dec":
+        return ("s", ("dec", _canon(("s", root[1], 0))[1], root[2], root[3]), d)
+    return t
+
+
 def timing_of(g) -> dict:
     """Timing tag of every node (see the module docstring); raises GraphError when inconsistent."""
     tag: dict = {}
@@ -163,14 +176,14 @@ def timing_of(g) -> dict:
         seen = set()
         for u, e in operands(g, v):
             t = tag[u]
-            seen.add((t[0], t[1], t[2] + e["pipe"]))
+            seen.add(_canon((t[0], t[1], t[2] + e["pipe"])))
             if e["z"] and t[0] != "s":
                 raise GraphError(f"edge {u}->{v}: a delay on a time-shared cone value")
         if len(seen) != 1:
             raise GraphError(f"node {v}: operands arrive at different times or rates {sorted(map(str, seen))}")
         if k not in ("mux", "decim", "acc"):
             (t,) = seen
-            if tag[v] != t:
+            if _canon(tag[v]) != t:
                 raise GraphError(f"node {v}: inconsistent timing")
         if k != "mux" and tag[v][0] == "s" and any(tag[u][0] == "c" for u, _ in operands(g, v)) and k != "acc":
             raise GraphError(f"node {v}: sample logic fed by a time-shared cone without an accumulator")

@@ -246,6 +246,12 @@ def propagate(g) -> nx.MultiDiGraph:
         if n["kind"] in ("quant", "input"):
             continue
         n["fmt"] = Fmt(bits_for_range(lo, hi), fr)
+        if n["kind"] == "output" and g.graph.get("stages"):
+            # the port carries the design's output format (design.json "output"),
+            # at least as wide as the proven range
+            last = g.graph["stages"][-1].out
+            if last.frac == fr and last.bits > n["fmt"].bits:
+                n["fmt"] = Fmt(last.bits, fr)
     return g
 
 

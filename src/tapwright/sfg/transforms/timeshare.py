@@ -100,6 +100,18 @@ def timeshare(g, K):
                 h.remove_node(v)
         for v in stage_nodes(h, s):
             h.nodes[v].pop("exit", None)
+        # products by a power of two are wiring: they stay out of the multipliers, summed
+        # at the strobe and carried K+1 cycles by pipeline registers to meet the accumulators
+        free = [t for t in terms if _free(t["coeff"])]
+        terms = [t for t in terms if not _free(t["coeff"])]
+        free_sum = _free_sum(h, s, free, st.coeff_frac) if free else None
+        if not terms:
+            if free_sum is None:
+                continue
+            h.nodes[free_sum]["exit"] = True
+            connect(h, free_sum, rnd)
+            _prune_dead(h, s)
+            continue
         P = math.ceil(len(terms) / K)
         accs = []
         two = any(len(t["ops"]) == 2 for t in terms)
@@ -127,6 +139,11 @@ def timeshare(g, K):
             a = add_node(h, "acc", name=f"s{s}_f{p}_acc", steps=K, role="acc", stage=s, group=p)
             connect(h, m, a)
             accs.append((a, 1))
+        if free_sum is not None:
+            # align the free sum with the accumulators' stage
+            w = add_node(h, "add", name=f"s{s}_free_late", role="wire", stage=s)
+            connect(h, free_sum, w, pipe=K + 1)
+            accs.append((w, 1))
         root = adder_tree(h, accs, stage=s)
         h.nodes[root]["exit"] = True
         connect(h, root, rnd)
@@ -141,6 +158,30 @@ def timeshare(g, K):
     h.graph["transforms"] = tuple(h.graph.get("transforms", ())) + ("timeshared",)
     h.graph["structure"] = "timeshared"
     return h
+
+
+def _free(c) -> bool:
+    c = abs(int(c))
+    return c != 0 and (c & (c - 1)) == 0
+
+
+def _free_sum(h, s, free, coeff_frac):
+    """Sum of the power-of-two products, read from the plain delay lines at the strobe."""
+    prods = []
+    for i, t in enumerate(free):
+        if len(t["ops"]) == 2:
+            (ra, za), (rb, zb) = t["ops"]
+            src = add_node(h, "add", name=f"s{s}_fz{i}_pre", role="preadd", stage=s)
+            h.add_edge(ra, src, port=0, z=int(za), pipe=0, sign=1, shift=0)
+            h.add_edge(rb, src, port=1, z=int(zb), pipe=0, sign=t["sign"], shift=0)
+            zin = 0
+        else:
+            (src, zin), = t["ops"]
+        m = add_node(h, "mul", name=f"s{s}_fz{i}", coeff=int(t["coeff"]), coeff_frac=coeff_frac,
+                     role="mul_free", stage=s)
+        h.add_edge(src, m, port=0, z=int(zin), pipe=0, sign=1, shift=0)
+        prods.append((m, 1))
+    return adder_tree(h, prods, stage=s, role="tree")
 
 
 def _mux_ports(h, mux, ops, K):

