@@ -161,6 +161,9 @@ def render_plan(result: PlanResult) -> str:
         lines.append(f"recommended: {c.label} - {c.estimate.dsp} {'multipliers' if spec.device == 'generic' else 'DSP blocks'}, "
                      f"{c.estimate.lut} LUT, {c.estimate.carry} carry, {c.estimate.ff} FF, latency "
                      f"{c.estimate.latency} cycles")
+        fit = part_fit(spec.device, c.estimate)
+        if fit:
+            lines.append(fit)
         lines.append(f"build it:    tapwright build {spec.path} --structure {c.label}")
     else:
         c = ex.closest
@@ -173,3 +176,20 @@ def render_plan(result: PlanResult) -> str:
     lines.append("")
     lines.append(CAUTION)
     return "\n".join(lines)
+
+
+def part_fit(device: str, est) -> str:
+    """'fits in part X at N percent' for the smallest listed part of the family that holds ``est``."""
+    from .cost.devices import get_profile
+
+    prof = get_profile(device)
+    for part in prof.parts:
+        use = {"dsp": est.dsp / part.dsp if part.dsp else (0 if est.dsp == 0 else 9),
+               "lut": (est.lut + (est.carry if prof.carry_bits_per_cell == 2 else 0)) / part.lut,
+               "ff": est.ff / part.ff}
+        if max(use.values()) <= 1.0:
+            return (f"fits in {part.name} at {use['dsp']:.0%} of its DSP blocks, {use['lut']:.0%} of its "
+                    f"LUTs, {use['ff']:.0%} of its flip-flops (estimate; part sizes: {part.source})")
+    if prof.parts:
+        return f"larger than the biggest listed {device} part ({prof.parts[-1].name})"
+    return ""
