@@ -10,9 +10,9 @@ For a quantized design the explorer builds each candidate's signal-flow graph
 - budget: dsp, lut, ff and latency within ``[target.budget]``.
 
 Ranking. Among feasible candidates the recommendation is the cheapest by one
-documented weighting: each resource as a fraction of what the spec allows
-(its budget when given, else the capacity of the family's smallest listed
-part), summed: ``dsp/DSP + (lut + carry)/LUT + ff/FF``, with latency as a tie
+documented weighting: each resource as a fraction of the capacity of the
+family's smallest listed part (the same yardstick for DSP blocks, LUTs and
+flip-flops; the budget decides feasibility only), summed: ``dsp/DSP + (lut + carry)/LUT + ff/FF``, with latency as a tie
 break. On ``generic`` (no device) the weighting is a gate-area proxy:
 sum of a*b over multipliers + adder bits + register bits. The Pareto front
 over (dsp, lut + carry, ff, latency) is marked.
@@ -220,10 +220,12 @@ def _normalizers(spec):
     prof = get_profile(spec.device)
     part = prof.parts[0] if prof.parts else None
     b = spec.budget
+    # one yardstick for every resource: the family's smallest listed part (the budget only
+    # decides feasibility); without a part, the budget
     return {
-        "dsp": b.dsp if b.dsp else (part.dsp if part else 1),
-        "lut": b.lut if b.lut else (part.lut if part else 1),
-        "ff": b.ff if b.ff else (part.ff if part else 1),
+        "dsp": part.dsp if part else (b.dsp or 1),
+        "lut": part.lut if part else (b.lut or 1),
+        "ff": part.ff if part else (b.ff or 1),
     }
 
 

@@ -233,16 +233,17 @@ def write_report(folder, *, spec, plan, fixed, sheet: dict, candidates=(), chose
     L.append("")
     L.append("## Requirement")
     L.append("")
-    L.append(f"- input {spec.sample_rate:g} Hz, {spec.in_bits} bits (Q{spec.in_bits - spec.in_frac}.{spec.in_frac})"
-             + (f", decimation {spec.decimation} to {spec.output_rate:g} Hz" if spec.decimation > 1 else ""))
-    L.append(f"- device {spec.device}, clock {spec.clock:g} Hz ({spec.cycles_per_sample} cycles per input sample)")
+    from ..plan import _hz
+    L.append(f"- input {_hz(spec.sample_rate)}, {spec.in_bits} bits (Q{spec.in_bits - spec.in_frac}.{spec.in_frac})"
+             + (f", decimation {spec.decimation} to {_hz(spec.output_rate)}" if spec.decimation > 1 else ""))
+    L.append(f"- device {spec.device}, clock {_hz(spec.clock)} ({spec.cycles_per_sample} cycles per input sample)")
     bud = spec.budget.as_dict()
     L.append("- budget: " + (", ".join(f"{k} {v}" for k, v in bud.items()) if bud else "none"))
     L.append("")
     L.append("## Filter")
     L.append("")
     if plan is not None:
-        L.append(f"- {plan.family.upper()}: {plan.why}")
+        L.append(f"- {plan.why}")
         for n in plan.notes:
             L.append(f"- {n}")
         L.append("")
