@@ -119,8 +119,43 @@ class Recipe:
                       tag=d.get("tag", ""))
 
 
+_CACHE: dict = {}
+_CACHE_MAX = 48
+
+
+def _structural(design, recipe, name):
+    """The graph before pipelining, cached per (design, structure, folding): the explorer asks
+    for the same structure at several pipelining targets."""
+    from .graph import copy_graph
+
+    key = (id(design), name, recipe.structure, recipe.transforms, recipe.stage_transforms, recipe.fold,
+           recipe.stage_folds, recipe.sos_form)
+    hit = _CACHE.get(key)
+    if hit is not None and hit[0] is design:
+        return copy_graph(hit[1])
+    g = _realize_structure(design, recipe, name)
+    if len(_CACHE) >= _CACHE_MAX:
+        _CACHE.pop(next(iter(_CACHE)))
+    _CACHE[key] = (design, g)
+    return copy_graph(g)
+
+
 def realize(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays=None):
     """The candidate's signal-flow graph (formats propagated, pipeline applied)."""
+    g = _structural(design, recipe, name)
+    if delays is None:
+        from ..cost.timing import delay_function
+        delays = delay_function(recipe.delay_model)
+    if recipe.period is not None:
+        g = _pipe.pipeline(g, recipe.period, delays, register_output=recipe.register_output)
+    elif recipe.register_output:
+        g = _pipe.pipeline(g, float("inf"), delays, register_output=True)
+    g.graph["structure"] = recipe.structure
+    g.graph["recipe"] = recipe
+    return g
+
+
+def _realize_structure(design: FixedDesign, recipe: Recipe, name: str):
     chain = "transposed" in recipe.transforms and recipe.stage_transforms is None
     g = _build.build(design, name=name, fir_adder="chain" if chain else "tree", sos_form=recipe.sos_form)
     if recipe.stage_transforms is None:
@@ -136,14 +171,4 @@ def realize(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays
         g = timeshare(g, {i: k for i, k in enumerate(recipe.stage_folds) if k > 1})
     elif recipe.fold > 1:
         g = timeshare(g, recipe.fold)
-    if delays is None:
-        from ..cost.timing import delay_function
-        delays = delay_function(recipe.delay_model)
-    d = delays
-    if recipe.period is not None:
-        g = _pipe.pipeline(g, recipe.period, d, register_output=recipe.register_output)
-    elif recipe.register_output:
-        g = _pipe.pipeline(g, float("inf"), d, register_output=True)
-    g.graph["structure"] = recipe.structure
-    g.graph["recipe"] = recipe
     return g
