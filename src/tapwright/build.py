@@ -236,7 +236,15 @@ def build_design(spec_or_plan, structure: str | None = None, out=None, force: bo
     spec = result.spec
     cand = _choose(result, structure)
     out = Path(out) if out is not None else Path("rtl_out") / spec.name
-    fixed = result.design.fixed
+    fixed = cand.fixed if getattr(cand, "fixed", None) is not None else result.design.fixed
+    plan_view = result.design
+    if getattr(cand, "chain", None) is not None:
+        from types import SimpleNamespace
+        ch = cand.chain
+        plan_view = SimpleNamespace(family="fir", why=f"multistage chain {ch.name} (stages: "
+                                    + ", ".join(cand.recipe.stage_structures) + ")",
+                                    notes=list(ch.notes), band_checks=list(ch.band_checks),
+                                    noise=dict(ch.noise), float_design=None)
     est = cand.estimate.as_dict() if hasattr(cand.estimate, "as_dict") else dict(cand.estimate)
     extra = {"candidate": cand.label,
              "recommended": result.recommended.label if result.recommended is not None else None}
@@ -246,7 +254,7 @@ def build_design(spec_or_plan, structure: str | None = None, out=None, force: bo
             from .report.write import write_report
         except ImportError:
             return None
-        name = write_report(tmp, spec=spec, plan=result.design, fixed=fixed, sheet=sheet,
+        name = write_report(tmp, spec=spec, plan=plan_view, fixed=fixed, sheet=sheet,
                             candidates=result.exploration.candidates, chosen=cand)
         return {"report": name}
 

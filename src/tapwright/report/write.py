@@ -97,6 +97,28 @@ def make_plots(folder: Path, *, spec, plan, fixed, candidates, chosen) -> list[s
     ax.grid(alpha=0.3)
     files.append(_save(fig, folder / "magnitude.png", plt))
 
+    if len(fixed.stages) > 1:
+        from ..fixed.response import stage_response
+        fig, ax = plt.subplots(figsize=(7, 3.6))
+        rate = 1
+        for i, st in enumerate(fixed.stages):
+            Hi = np.abs(stage_response(st, f * rate, fs))
+            if st.kind == "cic":
+                Hi = Hi / st.gain
+            ax.plot(f, _db(Hi), linewidth=0.9, label=f"stage {i}: {st.kind} /{getattr(st, 'decimation', 1)}")
+            rate *= getattr(st, "decimation", 1)
+        ax.plot(f, _db(Hq), color="black", linewidth=1.2, label="overall")
+        for lo, hi in alias_bands(spec):
+            ax.axvspan(lo, hi, color="tab:orange", alpha=0.15, linewidth=0)
+        _mask(ax, spec, ref_gain)
+        ax.set_ylim(floor, 10)
+        ax.set_xlabel("frequency at the input rate (Hz)")
+        ax.set_ylabel("magnitude (dB)")
+        ax.set_title("Stages of the chain (noble identities; CIC gain normalised), alias bands shaded")
+        ax.legend(loc="lower left", fontsize=7)
+        ax.grid(alpha=0.3)
+        files.append(_save(fig, folder / "stages.png", plt))
+
     passes = [b for b in spec.bands if b.kind in ("pass", "shaped")]
     if passes:
         lo, hi = min(b.lo for b in passes), max(b.hi for b in passes)
