@@ -186,3 +186,46 @@ def test_example_specs_plan(spec, capsys):
     assert code in (0, 1)
     assert d["candidates"]
     assert (code == 0) == (d["recommended"] is not None)
+
+
+CHAIN_SPEC = """
+name = "probe_dec8"
+sample_rate = 8e6
+decimation = 8
+family = "fir"
+[[band]]
+edges = [0, 300e3]
+gain = 1.0
+ripple_db = 0.5
+[[band]]
+edges = [500e3, 4e6]
+gain = 0.0
+atten_db = 50
+[input]
+bits = 12
+frac = 11
+[target]
+device = "generic"
+clock = 32e6
+"""
+
+
+def test_chain_candidate_builds_its_own_stages(tmp_path, capsys):
+    """A chain candidate's folder carries every stage (contract: stages in order, decimation the
+    product, decimation_phase from the stages' phases) and checks bit-exact."""
+    p = tmp_path / "probe_dec8.toml"
+    p.write_text(CHAIN_SPEC)
+    assert main(["plan", str(p), "--json"]) in (0, 1)
+    d = json.loads(capsys.readouterr().out)
+    chains = [c for c in d["candidates"] if c["structure"] == "chain"]
+    assert chains and all(isinstance(c["stages"], list) and len(c["stages"]) >= 2 for c in chains)
+    out = tmp_path / "f"
+    assert main(["build", str(p), "--structure", "chain", "--out", str(out)]) == 0
+    sheet = json.loads((out / "design.json").read_text())
+    assert sheet["structure"] == "chain" and len(sheet["stages"]) >= 2
+    prod = 1
+    for s in sheet["stages"]:
+        prod *= s.get("decimation", 1)
+    assert prod == sheet["decimation"] == 8
+    capsys.readouterr()
+    assert main(["check", str(out)]) == 0
