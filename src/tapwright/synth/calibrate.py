@@ -248,6 +248,36 @@ def run_calibration(specs, devices=DEVICES_DEFAULT, *, structures="pareto", exec
     return rows
 
 
+def rows_from_workdir(workdir, *, reestimate: bool = False) -> list[dict]:
+    """Rows rebuilt from the ``synth.json`` files a (possibly interrupted) run left in ``workdir``.
+
+    ``reestimate``: estimate each folder's recipe again with the current cost model
+    (the synthesized figures are kept).
+    """
+    import json
+    rows = []
+    for sj in sorted(Path(workdir).glob("*/synth.json")):
+        try:
+            syn = json.loads(sj.read_text())
+            sheet = json.loads((sj.parent / "design.json").read_text())
+        except (OSError, ValueError):
+            continue
+        est, got = syn["estimate"], syn["synth"]
+        if reestimate:
+            from .run import _estimate_for
+            est = _estimate_for({**sheet, "estimate": {}}, syn["device"])
+        cand = sheet.get("candidate", "")
+        row = {"spec": sheet.get("top"), "device": syn["device"], "candidate": cand,
+               "structure": sheet.get("structure", ""),
+               "reason": "recommended" if cand == sheet.get("recommended") else "",
+               "syn_srl": got.get("srl"), "syn_other": got.get("other"), "seconds": None, "error": ""}
+        for k in CATEGORIES:
+            row[f"est_{k}"], row[f"syn_{k}"] = est.get(k), got.get(k)
+            row[f"ratio_{k}"] = _ratio(est.get(k), got.get(k))
+        rows.append(row)
+    return rows
+
+
 # ------------------------------------------------------------------------------------------------
 # tables and plot
 
@@ -279,6 +309,31 @@ def summarize(rows) -> list[dict]:
             out.append({"device": d, "category": k, "n": len(pts), "median": statistics.median(errs),
                         "worst": worst[0], "worst_row": worst[1]})
     return out
+
+
+def by_structure(rows) -> list[tuple]:
+    """(device, structure, n, {category: median ratio}) over the successful rows."""
+    groups = {}
+    for r in rows:
+        if r.get("error"):
+            continue
+        groups.setdefault((r["device"], r.get("structure") or "?"), []).append(r)
+    out = []
+    for (d, st), rs in sorted(groups.items()):
+        med = {}
+        for k in CATEGORIES:
+            v = [r[f"ratio_{k}"] for r in rs if isinstance(r.get(f"ratio_{k}"), (int, float))
+                 and not (r.get(f"est_{k}") == 0 and r.get(f"syn_{k}") == 0)]
+            if v:
+                med[k] = statistics.median(v)
+        out.append((d, st, len(rs), med))
+    return out
+
+
+def _num(x) -> str:
+    if x is None:
+        return "-"
+    return "inf" if math.isinf(x) else f"{x:.2f}"
 
 
 def _pct(x: float) -> str:
@@ -316,6 +371,10 @@ def write_tables(rows, outdir, *, stem: str = "accuracy", note: str = "") -> dic
                       f"{s['worst_row']['spec']} / {s['worst_row']['candidate']} "
                       f"(est {s['worst_row'].get('est_' + s['category'])}, "
                       f"syn {s['worst_row'].get('syn_' + s['category'])})"] for s in summ])
+    md += ["", "## Median ratio estimate / synthesized by structure", "",
+           "(below 1: the model underestimates; above 1: it overestimates)", ""]
+    md += _md_table(["device", "structure", "designs"] + list(CATEGORIES),
+                    [[d, st, n] + [_num(m.get(k)) for k in CATEGORIES] for d, st, n, m in by_structure(rows)])
     md += ["", f"{len(ok)} designs synthesized" + (f", {len(bad)} failed (listed at the end)" if bad else "") + ".",
            "", "## Every design", ""]
     hdr = ["spec", "device", "candidate", "why"] + [f"{k} est/syn" for k in CATEGORIES] + ["srl", "s"]
@@ -330,6 +389,25 @@ def write_tables(rows, outdir, *, stem: str = "accuracy", note: str = "") -> dic
     paths["md"].write_text("\n".join(md))
     plot(rows, paths["png"])
     return paths
+
+
+def read_csv(path) -> list[dict]:
+    """Rows back from ``accuracy.csv`` (numbers as numbers)."""
+    rows = []
+    with open(path, newline="") as fh:
+        for r in csv.DictReader(fh):
+            for k, v in r.items():
+                if k in ("spec", "device", "candidate", "structure", "reason", "error"):
+                    continue
+                try:
+                    r[k] = int(v)
+                except ValueError:
+                    try:
+                        r[k] = float(v)
+                    except ValueError:
+                        r[k] = None if v == "" else v
+            rows.append(r)
+    return rows
 
 
 def plot(rows, path):
@@ -391,7 +469,14 @@ def main(argv=None) -> int:
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--workdir", default=None, help="build folder (default: a temporary folder)")
     ap.add_argument("--quiet", action="store_true")
+    ap.add_argument("--from-csv", default=None, help="only rewrite the tables and plot from this CSV")
+    ap.add_argument("--note", default="", help="text under the title of accuracy.md")
     a = ap.parse_args(argv)
+    if a.from_csv:
+        rows = read_csv(a.from_csv)
+        paths = write_tables(rows, a.out, note=a.note)
+        print("wrote " + ", ".join(str(p) for p in paths.values()))
+        return 0
     specs = a.specs or sorted(str(p) for p in Path("specs").glob("*.toml"))
     st = int(a.structures) if a.structures.isdigit() else a.structures
     import tempfile
@@ -405,7 +490,7 @@ def main(argv=None) -> int:
             f"{a.structures} (recommended or closest, then the Pareto front smallest first), estimated "
             f"lut+carry+ff <= {a.max_size}, audio_dec64 single-stage skipped. Run time {el / 60:.1f} min "
             f"on {a.workers} workers.")
-    paths = write_tables(rows, a.out, note=note)
+    paths = write_tables(rows, a.out, note=(a.note + "\n\n" + note).strip())
     for s in summarize(rows):
         print(f"{s['device']:6} {s['category']:6} n={s['n']:3} median {_pct(s['median']):>6} worst {_pct(s['worst']):>6}")
     print("wrote " + ", ".join(str(p) for p in paths.values()))
