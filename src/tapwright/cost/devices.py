@@ -153,6 +153,9 @@ class DeviceProfile:
     delays: Optional[Delays]
     srl: Optional[ShiftRegRule] = None
     sources: tuple = field(default=())   # ((field name, source), ...) for the scalar fields
+    #: LUT cells per bit of each multi-operand adder-tree level that Yosys turns into a
+    #: carry-save (full-adder) compressor after hard products; 0 = trees stay carry chains
+    tree_compressor_lut_per_bit: float = 0.0
 
     @property
     def cell_classes(self) -> dict:
@@ -295,7 +298,12 @@ ECP5 = DeviceProfile(
         ("lut_inputs", "[S: FPGA-DS-02012: slices of two LUT4]"),
         ("carry_bits_per_cell", "[S: Yosys techlibs/lattice/arith_map_ccu2c.v]; [C: adder probes]"),
         ("adder_lut_per_bit", "[C: adder probes: CCU2C carries the sum LUTs, no extra LUT4]"),
+        ("tree_compressor_lut_per_bit", "[C: calibration run docs/accuracy.csv: after MULT18X18D "
+         "products synth_ecp5 builds the adder tree as full-adder LUT4 pairs (about 2 LUT4 per bit "
+         "per tree adder) with one final CCU2C chain; rx_chan_dec4 polyphase+symmetric 5138 LUT4 / "
+         "915 CCU2C for a 79-product tree]"),
     ),
+    tree_compressor_lut_per_bit=2.0,
 )
 
 ICE40 = DeviceProfile(

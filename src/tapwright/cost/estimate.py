@@ -126,8 +126,20 @@ def estimate(g, device: str) -> Estimate:
     ff -= absorbed
     for w in acc_in_dsp:
         ff -= g.nodes[w]["fmt"].bits
+    # adder trees fed by hard products: on some families synthesis compresses all but the
+    # last adder of each tree into full-adder LUTs (profile field tree_compressor_lut_per_bit)
+    comp = getattr(prof, "tree_compressor_lut_per_bit", 0.0)
+    roots = set()
+    if comp and est.dsp:
+        for width, role, v in m.adders:
+            if role == "tree" and not any(g.nodes[w].get("role") == "tree" and g.nodes[w]["kind"] == "add"
+                                          for w in g.successors(v)):
+                roots.add(v)
     for width, role, v in m.adders:
         if v in acc_in_dsp:
+            continue
+        if comp and est.dsp and role == "tree" and v not in roots:
+            lut += int(round(comp * width))
             continue
         l, c = adder_cells(prof, width)
         lut += l
