@@ -637,14 +637,9 @@ def _fir_stages(g):
 
 
 def _prune_dead(h, s):
-    changed = True
-    while changed:
-        changed = False
-        for v in list(stage_nodes(h, s)):
-            d = h.nodes[v]
-            if d["kind"] == "add" and h.in_degree(v) == 0:
-                h.remove_node(v)
-                changed = True
+    from .structure import remove_sourceless_adders
+
+    remove_sourceless_adders(h, s)
 
 
 def shiftadd(g, stages=None, *, max_depth=None):

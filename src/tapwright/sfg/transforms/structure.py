@@ -253,7 +253,8 @@ def drop_zeros(g, stages=None):
     return _finalize(h, "halfband")
 
 
-def _prune_dead_adders(h, s):
+def remove_sourceless_adders(h, s):
+    """Delete the stage's adders left without operands, until none is left."""
     changed = True
     while changed:
         changed = False
@@ -262,6 +263,10 @@ def _prune_dead_adders(h, s):
             if d["kind"] == "add" and h.in_degree(v) == 0:
                 h.remove_node(v)
                 changed = True
+
+
+def _prune_dead_adders(h, s):
+    remove_sourceless_adders(h, s)
     _collapse_wires(h, s)
 
 
