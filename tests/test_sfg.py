@@ -279,3 +279,56 @@ def test_folding_equation_and_interval():
     dd = fir_design(make_coeffs(rng, 16, 1, 12), 12, 16, 24, dec=4)
     fp = timeshare(realize(dd, Recipe("polyphase", ("polyphase", "symmetric"), register_output=False)), 8)
     assert measure(fp).n_mults == 1 and input_interval(fp) == 2
+
+
+def test_fast_copy_and_topological_order_agree_with_networkx():
+    # networkx itself is the reference: copy_graph must equal MultiDiGraph.copy()
+    # (same nodes, edges, keys and attributes, fully independent), and
+    # condensed_order must be a topological order of networkx's condensation.
+    import networkx as nx
+
+    from tapwright.sfg.graph import condensed_order, copy_graph
+    h = FirStage(coeffs=(3, -5, 7, 9, 7, -5, 3), coeff_frac=4, out=Fmt(20, 4))
+    d = FixedDesign((h,), Fmt(12, 0), "half_up", "saturate")
+    for r in (Recipe("symmetric", transforms=("symmetric",)), Recipe("timeshared", fold=2)):
+        g = realize(d, r)
+        c = copy_graph(g)
+        ref = g.copy()
+        assert list(c.nodes(data=True)) == list(ref.nodes(data=True))
+        assert sorted(c.edges(keys=True, data=True), key=str) == sorted(ref.edges(keys=True, data=True), key=str)
+        assert [list(c.predecessors(v)) for v in c] == [list(ref.predecessors(v)) for v in ref]
+        u, v, k = next(iter(c.edges(keys=True)))
+        c.edges[u, v, k]["z"] += 5
+        c.nodes[u]["touched"] = True
+        assert g.edges[u, v, k]["z"] == ref.edges[u, v, k]["z"] and "touched" not in g.nodes[u]
+        pos = {x: i for i, comp in enumerate(condensed_order(g)) for x in comp}
+        assert all(pos[a] < pos[b] for a, b in g.edges())
+    # a recursive graph: loops come out as one component each, in topological order
+    g = realize(biquad_design(), Recipe("sos_df1", sos_form="df1"))
+    comps = condensed_order(g)
+    ref = nx.condensation(nx.DiGraph(g))
+    assert sorted(len(c) for c in comps) == sorted(len(m) for _, m in ref.nodes(data="members"))
+    pos = {x: i for i, comp in enumerate(comps) for x in comp}
+    assert all(pos[a] <= pos[b] for a, b in g.edges())
+
+
+def test_transforms_are_pure_functions():
+    # the structural caches in sfg/recipe.py hand one built graph to every transform:
+    # each transform must leave its input exactly as it was (common practice for caching)
+    from tapwright.sfg.recipe import _TRANSFORM
+    h = FirStage(coeffs=(3, 0, 7, 16, 7, 0, 3), coeff_frac=4, out=Fmt(20, 4))
+    d = FixedDesign((h,), Fmt(12, 0), "half_up", "saturate")
+
+    def snap(g):
+        return (list(g.nodes(data=True)), sorted(map(str, g.edges(keys=True, data=True))), dict(g.graph))
+
+    for t, fn in _TRANSFORM.items():
+        g = build.build(d)
+        before = repr(snap(g))
+        fn(g)
+        assert repr(snap(g)) == before, t
+    g = build.build(d)
+    before = repr(snap(g))
+    timeshare(g, 2)
+    P.pipeline(g, 2.0)
+    assert repr(snap(g)) == before

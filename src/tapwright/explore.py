@@ -278,10 +278,18 @@ def _rank(spec, sources, lb_fixed, *, name=None) -> Exploration:
     C = spec.cycles_per_sample
     cands = []
     seen = {}
+    shapes = set()
     for fixed, r, chain in sources:
         if r.label in seen:
             continue
         g = realize(fixed, r, name=name or spec.name, delays=delay_function(spec.device))
+        # the same structure with the same pipeline registers is the same candidate: skip
+        # its estimate (the signature check below would drop it anyway)
+        shape = (id(fixed), r.structure, r.transforms, r.stage_transforms, r.fold, r.stage_folds,
+                 r.sos_form, tuple(e for _, _, e in g.edges(data="pipe")))
+        if shape in shapes:
+            continue
+        shapes.add(shape)
         est = estimate(g, spec.device)
         # a pipelining target that changes nothing is not a candidate of its own
         sig = (id(fixed), r.structure, r.transforms, r.stage_transforms, r.fold, r.stage_folds,

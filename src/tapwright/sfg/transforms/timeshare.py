@@ -43,18 +43,35 @@ def _is_wire(g, v) -> bool:
     return e["sign"] == 1 and e["shift"] == 0
 
 
-def resolve(g, v, z=0):
-    """Follow wires back to a stable root: returns (root, total delay)."""
-    while _is_wire(g, v):
+def resolve(g, v, z=0, memo=None):
+    """Follow wires back to a stable root: returns (root, total delay).
+
+    ``memo`` (a dict kept across calls on one graph) makes resolving every tap
+    of an N-tap delay line O(N) instead of O(N^2).
+    """
+    path = []
+    while True:
+        if memo is not None and v in memo:
+            root, zz = memo[v]
+            break
+        if not _is_wire(g, v):
+            root, zz = v, 0
+            break
         (u, e), = operands(g, v)
-        z += e["z"]
+        path.append((v, e["z"]))
         v = u
-    return v, z
+    # unwind: each node on the path is its root plus the delays behind it
+    for w, ze in reversed(path):
+        zz += ze
+        if memo is not None:
+            memo[w] = (root, zz)
+    return root, zz + z
 
 
 def product_terms(g, s):
     """Products of FIR stage ``s``: list of dicts with coeff, operands [(root, z)], sign."""
     terms = []
+    memo: dict = {}
     for m in sorted((v for v in stage_nodes(g, s) if g.nodes[v].get("role") == "mul"),
                     key=lambda v: g.nodes[v].get("tap", 0)):
         c = int(g.nodes[m]["coeff"])
@@ -63,10 +80,11 @@ def product_terms(g, s):
         (u, e), = operands(g, m)
         if g.nodes[u].get("role") == "preadd":
             (a, ea), (b, eb) = operands(g, u)
-            ra, rb = resolve(g, a, ea["z"] + e["z"]), resolve(g, b, eb["z"] + e["z"])
+            ra = resolve(g, a, ea["z"] + e["z"], memo)
+            rb = resolve(g, b, eb["z"] + e["z"], memo)
             terms.append({"coeff": c, "ops": [ra, rb], "sign": eb["sign"], "tap": g.nodes[m].get("tap", 0)})
         else:
-            terms.append({"coeff": c, "ops": [resolve(g, u, e["z"])], "sign": 1, "tap": g.nodes[m].get("tap", 0)})
+            terms.append({"coeff": c, "ops": [resolve(g, u, e["z"], memo)], "sign": 1, "tap": g.nodes[m].get("tap", 0)})
     return terms
 
 
@@ -205,13 +223,18 @@ def _mux_ports(h, mux, ops, K):
 
 
 def _prune_dead(h, s):
-    changed = True
-    while changed:
-        changed = False
-        for v in list(stage_nodes(h, s)):
-            if h.nodes[v].get("role") in ("tap", "subtap") and h.out_degree(v) == 0:
-                h.remove_node(v)
-                changed = True
+    """Remove delay-line taps of stage ``s`` that nothing reads any more (worklist)."""
+    def dead(v):
+        d = h.nodes[v]
+        return d.get("stage") == s and d.get("role") in ("tap", "subtap") and h.out_degree(v) == 0
+    work = [v for v in stage_nodes(h, s) if dead(v)]
+    while work:
+        v = work.pop()
+        if v not in h or not dead(v):
+            continue
+        preds = set(h.predecessors(v))
+        h.remove_node(v)
+        work.extend(u for u in preds if dead(u))
 
 
 def folded_delays(K: int, taps, steps):
