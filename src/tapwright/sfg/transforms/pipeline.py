@@ -261,7 +261,8 @@ def retime(g, period: float | None = None, delays=unit_delays):
         except nx.NetworkXUnbounded:
             return None
         base = dist["in"]
-        return {v: int(dist[v] - base) for v in nodes}
+        r = {v: int(dist[v] - base) for v in nodes}
+        return r if _split(h, r, out) is not None else None
 
     if period is not None:
         r = feasible(period)
@@ -279,15 +280,52 @@ def retime(g, period: float | None = None, delays=unit_delays):
             else:
                 lo = mid + 1
         period = best
+    a = _split(h, r, out)
     for u, v, e in h.edges(data=True):
-        w_new = e["z"] + e["pipe"] + r[v] - r[u]
-        if w_new < 0:
+        z_new = e["z"] + a[v] - a[u]
+        p_new = e["pipe"] + (r[v] - a[v]) - (r[u] - a[u])
+        if z_new < 0 or p_new < 0:
             raise ValueError("illegal retiming")
-        # keep the pipeline registers where they are as far as possible
-        e["pipe"] = min(e["pipe"], w_new)
-        e["z"] = w_new - e["pipe"]
+        e["z"], e["pipe"] = z_new, p_new
     h.graph["retimed_period"] = critical_path(h, delays)
     return h, h.graph["retimed_period"], r
+
+
+def _split(h, r, out):
+    """Split the retiming r = a + b into a move of the sample delays (a) and one of the
+    pipeline registers (b), each edge keeping z >= 0 and pipe >= 0.
+
+    A sample delay ``z`` and a pipeline register are the same flip-flop at one
+    clock per sample, but not the same thing to the sample-level function nor
+    to the latency: moving both kinds separately, with a and b zero at the input
+    and the output, keeps every input-output path's count of each kind, so the
+    retimed graph computes the same samples with the same latency. Difference
+    constraints solved by Bellman-Ford; None when no split exists.
+    """
+    cg = nx.DiGraph()
+
+    def lim(x, y, bnd):  # a(x) - a(y) <= bnd
+        if cg.has_edge(y, x):
+            cg[y][x]["weight"] = min(cg[y][x]["weight"], bnd)
+        else:
+            cg.add_edge(y, x, weight=bnd)
+    for u, v, e in h.edges(data=True):
+        lim(u, v, e["z"])                              # z' = z + a(v) - a(u) >= 0
+        lim(v, u, e["pipe"] + r[v] - r[u])             # pipe' = pipe + b(v) - b(u) >= 0
+    lim("in", out, 0)
+    lim(out, "in", 0)
+    for v in h.nodes:
+        cg.add_edge("_src", v, weight=0)
+    try:
+        dist = nx.single_source_bellman_ford_path_length(cg, "_src")
+    except nx.NetworkXUnbounded:
+        return None
+    base = dist["in"]
+    a = {v: int(dist[v] - base) for v in h.nodes}
+    # b = r - a must also vanish at the ports (r does, by the host constraint)
+    if a[out] != 0 or r["in"] != 0 or r[out] != 0:
+        return None
+    return a
 
 
 def iteration_bound(g, delays=unit_delays) -> float:
