@@ -120,7 +120,9 @@ def _canon(t):
         r, K = root[1]
         return _canon(("s", r, d + K + 1))
     if kind == "s" and isinstance(root, tuple) and root and root[0] == "dec":
-        return ("s", ("dec", _canon(("s", root[1], 0))[1], root[2], root[3]), d)
+        # the decimator counts the pulses of strobe (root[1], d): unfold that one, delay included
+        _, r, dd = _canon(("s", root[1], d))
+        return ("s", ("dec", r, root[2], root[3]), dd)
     return t
 
 

@@ -4,8 +4,10 @@ Feed-forward parts run vectorised, node by node, on whole sample arrays.
 Recursive parts (each strongly connected component with a loop) run sample by
 sample on Python integers. Pipeline registers (``pipe``) do not change the
 sample-level result and are ignored here; they are timing, which the RTL
-simulation checks. Time-shared (folded) graphs carry a cycle-level schedule
-and run in :mod:`tapwright.sfg.fold`.
+simulation checks. Time-shared (folded) graphs run here at the sample level
+(an ``acc`` sums its cone over the K schedule steps); their cycle-level
+schedule, with every pipeline register, strobe and ``in_ready``, runs in
+:func:`tapwright.sfg.fold.run_cycles`.
 """
 from __future__ import annotations
 
