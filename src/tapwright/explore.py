@@ -19,7 +19,9 @@ over (dsp, lut + carry, ff, latency) is marked.
 
 Lower bound on hard multipliers: a filter needs at least
 ceil(T / (M * C)) multipliers, where T is the number of products per output
-left after symmetry, zero and power-of-two savings, M the decimation in front
+left after symmetry, zero and power-of-two savings and after sharing equal
+coefficients that multiply the same input (a transposed form; synthesis merges
+identical constant products), M the decimation in front
 of them and C = floor(clock / sample_rate) the cycles per input sample: each
 multiplier does at most one product per cycle. The time-shared polyphase
 candidates reach it.
@@ -115,9 +117,16 @@ def products_lower_bound(fixed: FixedDesign, cycles_per_sample: int) -> int:
             else:
                 idx = range(L)
             T = sum(1 for k in idx if not is_free_coeff(c[k]))
+            if st.decimation == 1:
+                # a transposed form multiplies one input by every coefficient: equal
+                # coefficients are one product after synthesis (shared constant products)
+                T = min(T, len({int(v) for v in c if not is_free_coeff(v)}))
             total += T / (rate * st.decimation * cycles_per_sample)
         elif st.kind == "sos":
-            T = sum(sum(1 for v in list(s.b) + list(s.a[1:]) if not is_free_coeff(v)) for s in st.sections)
+            # per section: the numerator products of one input (df2t shares equal b's),
+            # the feedback products of one output (equal a's shared)
+            T = sum(len({int(v) for v in s.b if not is_free_coeff(v)})
+                    + len({int(v) for v in s.a[1:] if not is_free_coeff(v)}) for s in st.sections)
             total += T / (rate * cycles_per_sample)
         rate *= getattr(st, "decimation", 1)
     return math.ceil(total - 1e-12)

@@ -135,6 +135,55 @@ class SharedConstProbe(wiring.Component):
         return m
 
 
+class PreAddMulProbe(wiring.Component):
+    """Registered ``y = (a + d) * c``: a symmetric FIR tap (pre-adder, then a constant product).
+
+    On xc7 synth_xilinx packs the pre-adder into the DSP48E1 (``USE_DPORT``); the
+    other families add in the fabric.
+    """
+
+    def __init__(self, x_bits=16, c=12345):
+        self.x_bits, self.c = x_bits, c
+        yb = x_bits + 1 + abs(c).bit_length() + 1
+        super().__init__({"a": In(signed(x_bits)), "d": In(signed(x_bits)), "y": Out(signed(yb))})
+
+    def elaborate(self, platform):
+        m = Module()
+        ra = Signal.like(self.a, name="a_r", reset_less=True)
+        rd = Signal.like(self.d, name="d_r", reset_less=True)
+        ry = Signal(self.y.shape(), name="y_r", reset_less=True)
+        m.d.sync += [ra.eq(self.a), rd.eq(self.d), ry.eq((ra + rd) * self.c)]
+        m.d.comb += self.y.eq(ry)
+        return m
+
+
+class MulAddTreeProbe(wiring.Component):
+    """Registered ``y = sum_i x_i * c_i`` over ``n`` inputs: products feeding an adder tree."""
+
+    def __init__(self, n=6, x_bits=16, coeffs=None):
+        self.n, self.x_bits = n, x_bits
+        self.coeffs = list(coeffs or [12345 + 1111 * i for i in range(n)])
+        yb = x_bits + max(abs(c).bit_length() for c in self.coeffs) + 1 + n.bit_length()
+        ports = {f"x{i}": In(signed(x_bits)) for i in range(n)}
+        ports["y"] = Out(signed(yb))
+        super().__init__(ports)
+
+    def elaborate(self, platform):
+        m = Module()
+        regs = []
+        for i in range(self.n):
+            r = Signal(signed(self.x_bits), name=f"x{i}_r", reset_less=True)
+            m.d.sync += r.eq(getattr(self, f"x{i}"))
+            regs.append(r)
+        ry = Signal(self.y.shape(), name="y_r", reset_less=True)
+        total = regs[0] * self.coeffs[0]
+        for r, c in zip(regs[1:], self.coeffs[1:]):
+            total = total + r * c
+        m.d.sync += ry.eq(total)
+        m.d.comb += self.y.eq(ry)
+        return m
+
+
 class MulAddProbe(wiring.Component):
     """Registered ``y = a * b + c``: the multiply-then-add path of a MAC/FIR tap.
 

@@ -156,6 +156,14 @@ class DeviceProfile:
     #: LUT cells per bit of each multi-operand adder-tree level that Yosys turns into a
     #: carry-save (full-adder) compressor after hard products; 0 = trees stay carry chains
     tree_compressor_lut_per_bit: float = 0.0
+    #: widest pre-adder (in front of a hard product) the block takes in; 0 = fabric
+    pre_adder_bits: int = 0
+    #: each hard product takes one adder of the tree it feeds as the block's post-adder
+    #: (cascade or C port), up to ``regs.post_adder_bits`` wide
+    tree_post_adders: bool = False
+    #: which adder trees the compressor rule covers: "any" tree in a design with hard
+    #: products, or only trees whose leaves are hard "products" (not accumulators)
+    tree_compressor_scope: str = "any"
 
     @property
     def cell_classes(self) -> dict:
@@ -253,7 +261,19 @@ XC7 = DeviceProfile(
         ("lut_inputs", "[S: UG474 7 Series CLB: 6-input LUTs]"),
         ("carry_bits_per_cell", "[S: UG474: CARRY4 spans 4 bits]; [C: adder probes]"),
         ("adder_lut_per_bit", "[C: adder probes, measured here with " + _YOSYS + "]"),
+        ("pre_adder_bits", "[S: UG479 DSP48E1: 25-bit A/D pre-adder]; [C: probe PreAddMulProbe: "
+         "registered (a + d) * c, 16-bit a, d -> 1 DSP48E1 and no other cell (USE_DPORT)]"),
+        ("tree_post_adders", "[C: probe MulAddTreeProbe, sum of n registered constant products: "
+         "n = 2, 4, 8 -> n DSP48E1 and n/2 - 1 fabric adders (LUT2 + CARRY4): each first-level "
+         "adder is a DSP post-adder]"),
+        ("tree_compressor_lut_per_bit", "[C: calibration run (docs/accuracy.csv), sensor_lowpass "
+         "symmetric: 21 DSP48E1, 13 tree adders left in fabric as LUT3/LUT5/LUT6 compressors, "
+         "361 LUT and 35 CARRY4 in all; fitted]"),
     ),
+    pre_adder_bits=25,
+    tree_post_adders=True,
+    tree_compressor_lut_per_bit=2.0,
+    tree_compressor_scope="products",
 )
 
 ECP5 = DeviceProfile(

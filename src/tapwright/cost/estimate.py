@@ -29,7 +29,7 @@ from dataclasses import dataclass, field
 from ..sfg.graph import input_interval, operands
 from ..sfg.metrics import measure
 from . import timing
-from .devices import absorbed_registers, adder_cells, get_profile, mult_blocks
+from .devices import absorbed_registers, adder_cells, get_profile, mult_blocks, shift_register_cells
 
 
 @dataclass
@@ -75,6 +75,12 @@ def _table_luts(prof, entries: int, width: int) -> int:
     return width * math.ceil(entries / per)
 
 
+def _cbits(n) -> int:
+    from ..fixed.formats import bits_for_range
+    vals = [int(c) for c in n["table"]] if n.get("table") is not None else [int(n.get("coeff") or 0)]
+    return bits_for_range(min(vals + [0]), max(vals + [0]))
+
+
 def estimate(g, device: str) -> Estimate:
     """Resource and clock estimate of graph ``g`` on ``device``."""
     prof = get_profile(device)
@@ -110,6 +116,20 @@ def estimate(g, device: str) -> Estimate:
                 soft_mult_adders += [a + b] * max(1, b - 1)
             continue
         est.dsp += blocks
+        if blocks > 1 and not (prof.regs is not None and prof.regs.cascade):
+            # partial products summed in the fabric: one carry-chain adder of the product's
+            # width, and with more than two partials a full-adder compressor level for each
+            # extra one where the family builds those (calibration run, ECP5: servo_diff
+            # transposed, 20x8 products in 2 blocks -> CCU2C only; vib_bandpass_iir sos_df2t,
+            # 41x14 in 3 blocks -> about 2 LUT4 per bit per extra partial beside the CCU2C)
+            # the final adder spans the bits above the lowest partial product
+            soft_mult_adders.append(max(2, a + b - prof.mult.a_partial))
+            comp_pp = getattr(prof, "tree_compressor_lut_per_bit", 0.0)
+            for _ in range(blocks - 2):
+                if comp_pp:
+                    lut += int(round(comp_pp * (a + b)))
+                else:
+                    soft_mult_adders.append(a + b)
         # registers the block may absorb: pipeline registers right after the product
         pipe_out = [e["pipe"] for _, _, e in g.out_edges(v, data=True)]
         if pipe_out and prof.regs is not None:
@@ -117,28 +137,91 @@ def estimate(g, device: str) -> Estimate:
             ab = absorbed_registers(prof, input_stages=0, pipeline_stages=min(stages, 1),
                                     output_stages=max(0, stages - 1), has_reset=False)
             absorbed += (ab["pipeline"] + ab["output"]) * n["fmt"].bits
-        # a time-shared accumulator right after the product becomes the post-adder
-        if prof.regs is not None and prof.regs.post_adder_bits:
-            for _, w, e in g.out_edges(v, data=True):
-                if g.nodes[w]["kind"] == "acc" and g.nodes[w]["fmt"].bits <= prof.regs.post_adder_bits \
-                        and e["pipe"] == 0 and blocks == 1:
-                    acc_in_dsp.add(w)
+        # a time-shared accumulator after the product is NOT absorbed as the block's
+        # post-adder: the lowering clears it at step 0 through a multiplexer, a pattern
+        # the DSP packers do not take (calibration run: xc7 and ice40 synthesize the
+        # same flip-flops as ECP5, which has no post-adder)
     ff -= absorbed
+    # short sample-delay lines read only by hard products: the blocks' input registers
+    # (xc7 A/B registers; calibration run: vib_bandpass_iir sos_df1 on xc7, 57 DSP48E1
+    # and 31 flip-flops in all)
+    if prof.regs is not None and prof.mult is not None:
+        zlines = {}
+        for u, w, e in g.edges(data=True):
+            if e["z"]:
+                zlines.setdefault(u, []).append((w, e["z"]))
+        for u, readers in zlines.items():
+            depth = max(z for _, z in readers)
+            ok = all(g.nodes[w]["kind"] == "mul" and mult_blocks(prof, g.nodes[u]["fmt"].bits,
+                                                                    _cbits(g.nodes[w])) >= 1
+                     for w, _ in readers)
+            k = absorbed_registers(prof, input_stages=depth, has_reset=True)["input"]
+            if ok and k >= depth:
+                ff -= depth * (g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0))
+    # pipeline chains nothing reads in between (one depth from a source tap) pack into
+    # shift-register LUTs where the family has them (profile srl rule, xc7 SRLC32E;
+    # probe test_xc7_delay_line_cells; the lowering's pipeline registers have no reset)
+    srl_cells = 0
+    if prof.srl is not None:
+        chains = {}
+        for u, _, e in g.edges(data=True):
+            if e["pipe"] and u not in m.shared_mults:
+                chains.setdefault((u, e["z"]), set()).add(e["pipe"])
+        for (u, z), depths in chains.items():
+            if len(depths) == 1:
+                p = next(iter(depths))
+                bits = g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
+                cells = shift_register_cells(prof.name, bits, p)
+                ff -= bits * p - cells["ff"]
+                srl_cells += cells["srl"]
+    # adders the hard blocks take in: pre-adders in front of a product, and one tree adder
+    # after each product (its post-adder), per the profile's probe-measured rules
+    in_block = set()
+    hard = {v for a, b, v in m.mults if mult_blocks(prof, a, b) >= 1}
+    pre_bits = getattr(prof, "pre_adder_bits", 0)
+    if pre_bits:
+        for width, role, v in m.adders:
+            succ = list(g.successors(v))
+            # operands straight from registers (delay-line taps), as in the probe; a
+            # pre-adder behind the multiplexers of a folded structure stays in fabric
+            # (calibration run: time-shared xc7 designs)
+            direct = all(g.nodes[u]["kind"] != "mux" for u in g.predecessors(v))
+            if role == "preadd" and direct and width <= pre_bits and succ and all(w in hard for w in succ):
+                in_block.add(v)
+    if getattr(prof, "tree_post_adders", False) and prof.regs is not None:
+        taken = set()
+        for v in sorted(hard, key=str):
+            if mult_blocks(prof, *next((a, b) for a, b, w in m.mults if w == v)) != 1:
+                continue
+            for w in g.successors(v):
+                n = g.nodes[w]
+                if n["kind"] == "add" and n.get("role") == "tree" and w not in taken \
+                        and n["fmt"].bits <= prof.regs.post_adder_bits:
+                    taken.add(w)
+                    break
+        in_block |= taken
     for w in acc_in_dsp:
         ff -= g.nodes[w]["fmt"].bits
     # adder trees fed by hard products: on some families synthesis compresses all but the
     # last adder of each tree into full-adder LUTs (profile field tree_compressor_lut_per_bit)
     comp = getattr(prof, "tree_compressor_lut_per_bit", 0.0)
     roots = set()
+    under = set()   # tree adders the compressor rule covers (see tree_compressor_scope)
+    scope = getattr(prof, "tree_compressor_scope", "any")
     if comp and est.dsp:
-        for width, role, v in m.adders:
-            if role == "tree" and not any(g.nodes[w].get("role") == "tree" and g.nodes[w]["kind"] == "add"
-                                          for w in g.successors(v)):
+        tree = {v for _, role, v in m.adders if role == "tree"}
+        from ..sfg.graph import condensed_order
+        for comp_nodes in condensed_order(g):
+            for v in comp_nodes:
+                if v in tree and (scope == "any" or all(u in hard or u in under for u in g.predecessors(v))):
+                    under.add(v)
+        for v in under:
+            if not any(w in under for w in g.successors(v)):
                 roots.add(v)
     for width, role, v in m.adders:
-        if v in acc_in_dsp:
+        if v in acc_in_dsp or v in in_block:
             continue
-        if comp and est.dsp and role == "tree" and v not in roots:
+        if comp and est.dsp and v in under and v not in roots:
             lut += int(round(comp * width))
             continue
         l, c = adder_cells(prof, width)
@@ -169,5 +252,5 @@ def estimate(g, device: str) -> Estimate:
         carry += c
     est.lut, est.carry, est.ff = int(lut), int(carry), int(max(0, ff))
     est.detail = {"absorbed_ff": absorbed, "soft_mult_adders": len(soft_mult_adders),
-                  "acc_in_dsp": len(acc_in_dsp)}
+                  "adders_in_blocks": len(in_block), "srl": srl_cells}
     return est

@@ -18,6 +18,12 @@ from ..sfg.transforms.pipeline import unit_delays
 from .devices import get_profile
 
 
+def _coeff_bits(n) -> int:
+    from ..fixed.formats import bits_for_range
+    vals = [int(c) for c in n["table"]] if n.get("table") is not None else [int(n["coeff"])]
+    return bits_for_range(min(vals + [0]), max(vals + [0]))
+
+
 def _mul_free(n) -> bool:
     return n.get("table") is None and is_free_coeff(n["coeff"])
 
@@ -47,8 +53,19 @@ def delay_function(device: str):
         if k == "mul":
             if _mul_free(n):
                 return 0.0
-            # a hard product: its register-to-register time less the path overhead
-            return max(0.5, d.mult_reg_ns - d.adder_fixed_ns)
+            # a hard product: its register-to-register time less the path overhead; a product
+            # tiled over several blocks adds the fabric adders that sum its partial products
+            t = max(0.5, d.mult_reg_ns - d.adder_fixed_ns)
+            if prof.mult is not None and not (prof.regs is not None and prof.regs.cascade):
+                from ..sfg.graph import operands
+                from .devices import mult_blocks
+                (u, _), = operands(g, v)
+                a = g.nodes[u]["fmt"].bits
+                b = _coeff_bits(n)
+                blocks = mult_blocks(prof, a, b)
+                if blocks > 1:
+                    t += math.ceil(math.log2(blocks)) * (adder(a + b) - d.adder_fixed_ns + d.route_ns)
+            return t
         if k == "add":
             ins = g.in_degree(v)
             if ins <= 1 and all(e["sign"] == 1 for _, _, e in g.in_edges(v, data=True)):

@@ -43,6 +43,8 @@ class Metrics:
     critical_path: float = 0.0
     latency: int = 0
     fold: int = 1
+    zero_lsbs: dict = field(default_factory=dict)   # node -> always-zero low bits
+    shared_mults: set = field(default_factory=set)  # products merged with an identical earlier one
 
     @property
     def n_mults(self) -> int:
@@ -68,15 +70,63 @@ def _coeff_bits(n) -> int:
     return bits_for_range(min(c, 0), max(c, 0))
 
 
+def zero_lsbs(g) -> dict:
+    """Low bits of every node's word that are always zero (power-of-two products, shifts).
+
+    Synthesis removes flip-flops whose input is a constant zero (Yosys opt_dff), so a
+    register of such a word costs ``bits - zero_lsbs`` flip-flops (calibration run: the
+    ECP5 halfband centre tap 1/2 carried K+1 cycles, 16 zero bits per stage dropped).
+    """
+    from .graph import condensed_order
+    tz: dict = {}
+    for comp in condensed_order(g):
+        for v in comp:
+            n = g.nodes[v]
+            k = n["kind"]
+            ops = operands(g, v)
+            if len(comp) > 1 or k in ("input", "acc") or not ops or any(u not in tz for u, _ in ops):
+                tz[v] = 0
+                continue
+            fr = n["fmt"].frac if n.get("fmt") is not None else 0
+            if k == "mul":
+                (u, _), = ops
+                cs = [int(c) for c in n["table"]] if n.get("table") is not None else [int(n["coeff"])]
+                cz = min(((c & -c).bit_length() - 1) if c else 64 for c in cs)
+                tz[v] = tz[u] + cz
+            elif k in ("add", "mux"):
+                vals = [tz[u] + d["shift"] + fr - g.nodes[u]["fmt"].frac for u, d in ops]
+                if k == "mux" and n.get("zero_port") is not None:
+                    vals.append(64)
+                tz[v] = max(0, min(vals))
+            elif k in ("output", "decim"):
+                (u, _), = ops
+                tz[v] = tz[u]
+            else:  # quant: rounding may set low bits
+                tz[v] = 0
+            if n.get("fmt") is not None:
+                tz[v] = min(tz[v], n["fmt"].bits)
+    return tz
+
+
 def measure(g, delays=unit_delays) -> Metrics:
     m = Metrics()
     m.fold = int(g.graph.get("fold", 1))
+    shared = {}
     for v, n in g.nodes(data=True):
         k = n["kind"]
         if k == "mul":
             if n.get("table") is None and is_free_coeff(n["coeff"]):
                 continue
-            (u, _), = operands(g, v)
+            (u, e), = operands(g, v)
+            if n.get("table") is None:
+                # synthesis merges identical products (same operand, same constant: Yosys
+                # opt_merge, probe test_identical_constant_products_are_shared), and with them
+                # the identical registers behind them
+                key = (u, e["z"], e["pipe"], int(n["coeff"]), int(n.get("coeff_frac", 0)))
+                if key in shared:
+                    m.shared_mults.add(v)
+                    continue
+                shared[key] = v
             m.mults.append((g.nodes[u]["fmt"].bits, _coeff_bits(n), v))
         elif k == "add":
             ops = operands(g, v)
@@ -108,23 +158,27 @@ def measure(g, delays=unit_delays) -> Metrics:
     pmax = defaultdict(int)
     captured = set()
     for u, v, e in g.edges(data=True):
+        if u in m.shared_mults:
+            continue
         if e["z"]:
             zmax[u] = max(zmax[u], e["z"])
         if e["pipe"]:
             pmax[u, e["z"]] = max(pmax[u, e["z"]], e["pipe"])
         if g.nodes[v]["kind"] == "mux":
             captured.add(u)
+    tz = zero_lsbs(g)
     for u, z in zmax.items():
-        w = g.nodes[u]["fmt"].bits
+        w = g.nodes[u]["fmt"].bits - tz.get(u, 0)
         extra = 1 if u in captured else 0
         m.zreg_bits += (z + extra) * w
         m.delay_elements += z + extra
     for u in captured:
         if u not in zmax:
-            m.zreg_bits += g.nodes[u]["fmt"].bits
+            m.zreg_bits += g.nodes[u]["fmt"].bits - tz.get(u, 0)
             m.delay_elements += 1
     for (u, _), p in pmax.items():
-        m.pipe_bits += p * g.nodes[u]["fmt"].bits
+        m.pipe_bits += p * (g.nodes[u]["fmt"].bits - tz.get(u, 0))
+    m.zero_lsbs = tz
     m.latency = latency(g)
     if m.fold > 1:
         m.counter_bits = max(1, math.ceil(math.log2(m.fold + 1)))

