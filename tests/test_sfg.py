@@ -332,3 +332,23 @@ def test_transforms_are_pure_functions():
     timeshare(g, 2)
     P.pipeline(g, 2.0)
     assert repr(snap(g)) == before
+
+
+def test_metrics_share_identical_products_and_find_zero_low_bits():
+    # identical constant products of one operand are one multiplier after synthesis
+    # (Yosys opt_merge; probe test_identical_constant_products_are_shared): the
+    # df2t biquad with b = (1000, 2000, 1000) multiplies its input by 1000 twice
+    from tapwright.sfg.metrics import zero_lsbs
+    m1 = measure(realize(biquad_design(), Recipe("sos_df1", sos_form="df1")))
+    m2 = measure(realize(biquad_design(), Recipe("sos_df2t", sos_form="df2t")))
+    assert len(m1.mults) == 2 * 5 and not m1.shared_mults   # df1: x[n], x[n-2] are different words
+    assert len(m2.mults) == 2 * 4 and len(m2.shared_mults) == 2
+    # a product by 8 = 2**3 ends in three zero bits, a product by 12 = 3 * 2**2 in two
+    # (hand arithmetic), and a sum keeps the fewer
+    st = FirStage(coeffs=(12, 8), coeff_frac=4, out=Fmt(20, 4))
+    g = build.build(FixedDesign((st,), Fmt(12, 0), "half_up", "saturate"))
+    tz = zero_lsbs(g)
+    prods = {g.nodes[v]["coeff"]: tz[v] for v, n in g.nodes(data=True) if n["kind"] == "mul"}
+    assert prods == {12: 2, 8: 3}
+    tree = [v for v, n in g.nodes(data=True) if n["kind"] == "add" and n.get("role") == "tree"]
+    assert tree and all(tz[v] == 2 for v in tree)
