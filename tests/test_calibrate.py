@@ -143,3 +143,21 @@ def test_select_caps(tiny):
     assert picks[0][1] in ("recommended", "closest")
     assert len({c.label for c, _ in picks}) == len(picks)
 
+
+
+def test_packaged_accuracy_matches_the_published_tables():
+    # the line that plan and report.md quote comes from cost/accuracy.json, which must be
+    # the summary the calibration run wrote beside docs/accuracy.csv, and that summary must
+    # follow from the CSV rows themselves
+    import json
+    from pathlib import Path
+
+    from tapwright.cost.accuracy import SUMMARY, accuracy_line
+    from tapwright.synth.calibrate import read_csv, summary_json
+    docs = Path(__file__).parent.parent / "docs"
+    packaged = json.loads(SUMMARY.read_text())
+    assert packaged == json.loads((docs / "accuracy_summary.json").read_text())
+    assert summary_json(read_csv(docs / "accuracy.csv")) == packaged
+    line = accuracy_line("ecp5")
+    assert "DSP blocks" in line and "clock (vs nextpnr)" in line
+    assert accuracy_line("generic") == ""

@@ -175,6 +175,10 @@ def render_plan(result: PlanResult) -> str:
         lines.append("the quantized filter misses the spec in at least one band (see the table above)")
     lines.append("")
     lines.append(CAUTION)
+    from .cost.accuracy import accuracy_line
+    acc = accuracy_line(spec.device)
+    if acc:
+        lines.append(acc)
     return "\n".join(lines)
 
 

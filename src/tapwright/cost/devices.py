@@ -164,6 +164,9 @@ class DeviceProfile:
     #: which adder trees the compressor rule covers: "any" tree in a design with hard
     #: products, or only trees whose leaves are hard "products" (not accumulators)
     tree_compressor_scope: str = "any"
+    #: the partial products of a product tiled over several blocks are summed in the
+    #: fabric (False: inside the blocks, by a cascade or the blocks' own adders)
+    tile_sums_in_fabric: bool = True
 
     @property
     def cell_classes(self) -> dict:
@@ -366,7 +369,11 @@ ICE40 = DeviceProfile(
         ("lut_inputs", "[S: iCE40 logic cell = LUT4 + carry + DFF]"),
         ("carry_bits_per_cell", "[C: adder probes, one SB_CARRY per bit]"),
         ("adder_lut_per_bit", "[C: adder probes, one SB_LUT4 per sum bit]"),
+        ("tile_sums_in_fabric", "[C: calibration run, vib_bandpass_iir sos_df1/sos_df2t on iCE40: "
+         "87/70 SB_MAC16 for 30/22 products wider than 16x16, and no fabric adders for their partial "
+         "products beyond the rest of the design (est. with them 8684 LUT+carry, synthesized 3439)]"),
     ),
+    tile_sums_in_fabric=False,
 )
 
 

@@ -116,7 +116,8 @@ def estimate(g, device: str) -> Estimate:
                 soft_mult_adders += [a + b] * max(1, b - 1)
             continue
         est.dsp += blocks
-        if blocks > 1 and not (prof.regs is not None and prof.regs.cascade):
+        if blocks > 1 and getattr(prof, "tile_sums_in_fabric", True) \
+                and not (prof.regs is not None and prof.regs.cascade):
             # partial products summed in the fabric: one carry-chain adder of the product's
             # width, and with more than two partials a full-adder compressor level for each
             # extra one where the family builds those (calibration run, ECP5: servo_diff

@@ -56,7 +56,8 @@ def delay_function(device: str):
             # a hard product: its register-to-register time less the path overhead; a product
             # tiled over several blocks adds the fabric adders that sum its partial products
             t = max(0.5, d.mult_reg_ns - d.adder_fixed_ns)
-            if prof.mult is not None and not (prof.regs is not None and prof.regs.cascade):
+            if prof.mult is not None and getattr(prof, "tile_sums_in_fabric", True) \
+                    and not (prof.regs is not None and prof.regs.cascade):
                 from ..sfg.graph import operands
                 from .devices import mult_blocks
                 (u, _), = operands(g, v)

@@ -331,6 +331,11 @@ def write_report(folder, *, spec, plan, fixed, sheet: dict, candidates=(), chose
     L.append("- test vectors and the self-checking testbench (see design.json `testbench`)")
     L.append("")
     L.append(f"_{CAUTION}_")
+    from ..cost.accuracy import accuracy_line
+    acc = accuracy_line(sheet.get("estimate", {}).get("device", spec.device))
+    if acc:
+        L.append("")
+        L.append(f"_{acc}_")
     L.append("")
     (folder / "report.md").write_text("\n".join(L))
     return "report.md"

