@@ -352,3 +352,17 @@ def test_metrics_share_identical_products_and_find_zero_low_bits():
     assert prods == {12: 2, 8: 3}
     tree = [v for v, n in g.nodes(data=True) if n["kind"] == "add" and n.get("role") == "tree"]
     assert tree and all(tz[v] == 2 for v in tree)
+
+
+@pytest.mark.parametrize("cbits,in_bits", [(12, 12), (26, 30), (40, 40)])
+def test_interpreter_linear_forms_exact_at_every_width(cbits, in_bits):
+    # the interpreter sums adder trees as linear forms (float64 convolution below 2**53,
+    # int64 or Python integers above); the bit-true reference is the outside model
+    rng = np.random.default_rng(cbits)
+    c = [int(v) for v in rng.integers(-(1 << (cbits - 1)), 1 << (cbits - 1), size=9)]
+    st = FirStage(coeffs=tuple(c), coeff_frac=cbits - 1, out=Fmt(in_bits + 4, in_bits - 1))
+    d = FixedDesign((st,), Fmt(in_bits, in_bits - 1), "half_even", "saturate")
+    x = stimulus(rng, d.in_fmt, 300)
+    x[:3] = [d.in_fmt.hi, d.in_fmt.lo, d.in_fmt.hi]
+    for r in (Recipe("direct"), Recipe("transposed", transforms=("transposed",))):
+        assert np.array_equal(interpret.run(realize(d, r), x), reference.run(d, x))

@@ -219,16 +219,116 @@ def _run_loop(g, comp, vals):
         vals[v] = arr if wide else arr.astype(np.int64)
 
 
+#: a linear form with more (leaf, delay) terms than this is evaluated as arrays
+_FORM_MAX = 8192
+
+
+class _Values(dict):
+    """Node values; a node kept as a linear form is evaluated on first read.
+
+    Feed-forward multiply/add nodes are not executed one by one: each carries its
+    value as an exact linear form ``{leaf node: {delay: integer weight}}`` over the
+    nodes before it that are not multiplies or adds (input, delay-line readers
+    inside loops, quantizers, decimators, accumulators...). A form is turned into
+    an array only when something else reads it, by one convolution per leaf,
+    done in float64 when every partial sum is an integer below 2**53 (so exactly),
+    else in int64 or Python integers. The sums of a filter's adder tree therefore
+    cost one convolution instead of one array operation per node.
+    """
+
+    def __init__(self):
+        super().__init__()
+        self.forms = {}
+
+    def __missing__(self, v):
+        if v not in self.forms:
+            raise KeyError(v)
+        arr = _evaluate(self.forms.pop(v), self)
+        self[v] = arr
+        return arr
+
+
+def _evaluate(form, vals):
+    total = None
+    for leaf, taps in form.items():
+        a = vals[leaf]
+        n = len(a)
+        taps = {z: c for z, c in taps.items() if c and z < n}
+        if not taps:
+            part = np.zeros(n, dtype=a.dtype)
+        else:
+            obj = a.dtype == object
+            amax = int(np.max(np.abs(a))) if n and not obj else None
+            l1 = sum(abs(c) for c in taps.values())
+            if not obj and amax * l1 < 2 ** 53:
+                h = np.zeros(max(taps) + 1)
+                for z, c in taps.items():
+                    h[z] = c
+                part = np.rint(np.convolve(a.astype(np.float64), h)[:n]).astype(np.int64)
+            else:
+                big = obj or amax * l1 >= 2 ** 62
+                src = a.astype(object) if big and not obj else a
+                part = None
+                for z, c in taps.items():
+                    t = _delayed(src, z) * (int(c) if big else np.int64(c))
+                    part = t if part is None else part + t
+        if total is not None and (total.dtype == object) != (part.dtype == object):
+            total, part = total.astype(object), part.astype(object)
+        total = part if total is None else total + part
+    return total
+
+
+def _form_of(g, v, vals, loops):
+    """The linear form of a plain multiply or add node, or None when it must run as arrays."""
+    n = g.nodes[v]
+    k = n["kind"]
+    if v in loops or k not in ("add", "mul") or (k == "mul" and n.get("table") is not None):
+        return None
+    if _wide(g, v):
+        return None
+    ops = operands(g, v)
+    if not ops:
+        return None
+    out: dict = {}
+    fr = n["fmt"].frac
+    for u, d in ops:
+        if u in vals.forms:
+            src = vals.forms[u]
+        elif u in vals:
+            if vals[u] is None:
+                return None
+            src = {u: {0: 1}}
+        else:
+            return None
+        if k == "mul":
+            w = int(n["coeff"])
+        else:
+            s = d["shift"] + fr - g.nodes[u]["fmt"].frac
+            if s < 0:
+                return None
+            w = d["sign"] * (1 << s)
+        z0 = d["z"]
+        for leaf, taps in src.items():
+            dst = out.setdefault(leaf, {})
+            for z, c in taps.items():
+                dst[z + z0] = dst.get(z + z0, 0) + c * w
+    if sum(len(t) for t in out.values()) > _FORM_MAX:
+        return None
+    return out
+
+
 def run(g, x) -> np.ndarray:
     """Output samples of graph ``g`` for integer input ``x``."""
     x = np.asarray(x)
-    vals = {}
+    vals = _Values()
     dg = nx.DiGraph(g)
     cond = nx.condensation(dg)
     members = cond.graph["mapping"]
     comps: dict[int, set] = {}
     for v, c in members.items():
         comps.setdefault(c, set()).add(v)
+    loops = {v for comp in comps.values() for v in comp
+             if len(comp) > 1 or dg.has_edge(v, v)}
     for c in nx.lexicographical_topological_sort(cond, key=lambda c: min(map(str, comps[c]))):
         comp = comps[c]
         loop = len(comp) > 1 or any(dg.has_edge(v, v) for v in comp)
@@ -238,6 +338,10 @@ def run(g, x) -> np.ndarray:
         (v,) = comp
         if g.nodes[v]["kind"] == "input":
             vals[v] = x.astype(object) if x.dtype == object else x.astype(np.int64)
+            continue
+        form = _form_of(g, v, vals, loops)
+        if form is not None:
+            vals.forms[v] = form
             continue
         vals[v] = _vec(g, v, vals)
     out = vals[output_node(g)]
