@@ -280,11 +280,18 @@ def _naf_weights(limit: int) -> np.ndarray:
     return w
 
 
-def _a_vec(u: int, vs: np.ndarray, limit: int, right_shift: bool):
+_GU = np.array([1, 1, 1, -1, 1, 1], dtype=np.int64)
+_GV = np.array([1, -1, 1, 1, 1, -1], dtype=np.int64)
+
+
+def _a_vec(u: int, vs: np.ndarray, limit: int, right_shift: bool, forms: bool = True):
     """A-operations of odd ``u`` with every odd ``vs[j]`` below ``limit``, vectorised.
 
     Returns ``(vals, j, form)`` where ``form`` rows are ``(su, gu, sv, gv, r)`` with
-    ``u`` the first operand (``vals = (gu*u*2**su + gv*vs[j]*2**sv) >> r``).
+    ``u`` the first operand (``vals = (gu*u*2**su + gv*vs[j]*2**sv) >> r``). With
+    ``forms=False`` only ``vals`` is computed (``j`` and ``form`` are None); with
+    ``forms=True`` the rows come as a :class:`_Lazy` that builds them for the
+    entries a caller keeps.
     """
     K = limit.bit_length() + 1
     ks = np.arange(1, K + 1, dtype=np.int64)
@@ -294,35 +301,57 @@ def _a_vec(u: int, vs: np.ndarray, limit: int, right_shift: bool):
     V = vs[J]
     uk = np.int64(u) << KK
     vk = V << KK
-    vals, js, forms = [], [], []
-    one = np.ones_like(KK)
-    zero = np.zeros_like(KK)
+    vals, js, codes, kks, rs = [], [], [], [], []
     # u*2**k + v, u*2**k - v, v*2**k + u, v*2**k - u (then absolute values)
-    for val, f in ((uk + V, (KK, one, zero, one, zero)),
-                   (uk - V, (KK, one, zero, -one, zero)),
-                   (vk + u, (zero, one, KK, one, zero)),
-                   (vk - u, (zero, -one, KK, one, zero))):
-        neg = val < 0
-        f = np.stack(f, axis=1)
-        f[neg, 1] *= -1
-        f[neg, 3] *= -1
-        val = np.abs(val)
-        ok = (val > 0) & (val <= limit)
-        vals.append(val[ok]); js.append(J[ok]); forms.append(f[ok])
+    for var, val in enumerate((uk + V, uk - V, vk + u, vk - u)):
+        a = np.abs(val)
+        ok = (a > 0) & (a <= limit)
+        vals.append(a[ok])
+        if forms:
+            js.append(J[ok])
+            codes.append(var * 2 + (val[ok] < 0))
+            kks.append(KK[ok])
+            rs.append(np.zeros(int(ok.sum()), dtype=np.int64))
     if right_shift:
         jj = np.arange(nv)
-        for val, gv in ((u + vs, 1), (u - vs, -1)):
-            neg = val < 0
+        for var, val in ((4, u + vs), (5, u - vs)):
             a = np.abs(val)
             ok = a > 0
-            a, j2, negk = a[ok], jj[ok], neg[ok]
+            a, j2, negk = a[ok], jj[ok], val[ok] < 0
             r = np.log2(a & -a).astype(np.int64)
-            f = np.stack([np.zeros_like(a), np.where(negk, -1, 1), np.zeros_like(a),
-                          np.where(negk, -gv, gv), r], axis=1)
             v2 = a >> r
             ok2 = v2 <= limit
-            vals.append(v2[ok2]); js.append(j2[ok2]); forms.append(f[ok2])
-    return np.concatenate(vals), np.concatenate(js), np.concatenate(forms)
+            vals.append(v2[ok2])
+            if forms:
+                js.append(j2[ok2])
+                codes.append(var * 2 + negk[ok2])
+                kks.append(np.zeros(int(ok2.sum()), dtype=np.int64))
+                rs.append(r[ok2])
+    vals = np.concatenate(vals)
+    if not forms:
+        return vals, None, None
+    return vals, np.concatenate(js), _Lazy(np.concatenate(codes), np.concatenate(kks), np.concatenate(rs))
+
+
+class _Lazy:
+    """Form rows ``(su, gu, sv, gv, r)`` of :func:`_a_vec`, built only where indexed."""
+
+    def __init__(self, codes, kk, r):
+        self.codes, self.kk, self.r = codes, kk, r
+
+    def __getitem__(self, idx):
+        return _Lazy(self.codes[idx], self.kk[idx], self.r[idx])
+
+    def __len__(self):
+        return len(self.codes)
+
+    def rows(self) -> np.ndarray:
+        var, neg = self.codes // 2, (self.codes % 2).astype(bool)
+        su = np.where(var < 2, self.kk, 0)
+        sv = np.where((var == 2) | (var == 3), self.kk, 0)
+        gu = np.where(neg, -_GU[var], _GU[var])
+        gv = np.where(neg, -_GV[var], _GV[var])
+        return np.stack([su, gu, sv, gv, self.r], axis=1)
 
 
 class _Builder:
@@ -369,6 +398,7 @@ class _Builder:
         vals, js, forms, d = vals[first], js[first], forms[first], d[first]
         better = d < self.Sd[vals]
         vals, js, forms, d = vals[better], js[better], forms[better], d[better]
+        forms = forms.rows()
         self.Sd[vals] = d
         c = self.Sc
         c[vals, 0] = i
@@ -451,7 +481,7 @@ class _Builder:
         lim_d = np.iinfo(np.int64).max if self.maxd is None else self.maxd
         score = np.zeros(self.limit + 1, dtype=np.int64)
         for t in self.todo:
-            z, _, _ = _a_vec(t, rv, self.limit, self.rs)
+            z, _, _ = _a_vec(t, rv, self.limit, self.rs, forms=False)
             dv = self._divisors(t)
             if dv:
                 z = np.concatenate([z, np.array(dv, dtype=np.int64)])
@@ -473,7 +503,7 @@ class _Builder:
         rv = np.array(list(self.R), dtype=np.int64)
         best = None
         for t in sorted(self.todo):
-            z, _, _ = _a_vec(t, rv, self.limit, self.rs)
+            z, _, _ = _a_vec(t, rv, self.limit, self.rs, forms=False)
             if not len(z):
                 continue
             k = int(np.argmin(self.w[z] * (self.limit + 1) + z))
