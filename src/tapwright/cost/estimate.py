@@ -27,7 +27,7 @@ import math
 from dataclasses import dataclass, field
 
 from ..sfg.graph import input_interval, operands
-from ..sfg.metrics import measure
+from ..sfg.metrics import live_graph, measure
 from . import timing
 from .devices import absorbed_registers, adder_cells, get_profile, mult_blocks, shift_register_cells
 
@@ -85,6 +85,7 @@ def estimate(g, device: str) -> Estimate:
     """Resource and clock estimate of graph ``g`` on ``device``."""
     prof = get_profile(device)
     delays = timing.delay_function(prof.name)
+    g = live_graph(g)
     m = measure(g, delays)
     est = Estimate(device=prof.name)
     est.latency = m.latency
@@ -169,11 +170,15 @@ def estimate(g, device: str) -> Estimate:
             if e["pipe"] and u not in m.shared_mults:
                 chains.setdefault((u, e["z"]), set()).add(e["pipe"])
         for (u, z), depths in chains.items():
-            if len(depths) == 1:
-                p = next(iter(depths))
-                bits = g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
-                cells = shift_register_cells(prof.name, bits, p)
-                ff -= bits * p - cells["ff"]
+            # a chain read at several depths packs segment by segment (each segment ends
+            # at a tap)
+            bits = g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
+            prev = 0
+            for p in sorted(depths):
+                seg = p - prev
+                prev = p
+                cells = shift_register_cells(prof.name, bits, seg)
+                ff -= bits * seg - cells["ff"]
                 srl_cells += cells["srl"]
     # adders the hard blocks take in: pre-adders in front of a product, and one tree adder
     # after each product (its post-adder), per the profile's probe-measured rules

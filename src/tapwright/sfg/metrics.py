@@ -108,7 +108,30 @@ def zero_lsbs(g) -> dict:
     return tz
 
 
+def live_graph(g):
+    """``g`` without the nodes from which no path reaches the output (synthesis removes
+    logic nothing reads: calibration run, the halfband polyphase delay line past its
+    centre tap); ``g`` itself when everything is live."""
+    from .graph import copy_graph, output_node
+    out = output_node(g)
+    live = {out}
+    stack = [out]
+    pred = g._pred
+    while stack:
+        v = stack.pop()
+        for u in pred[v]:
+            if u not in live:
+                live.add(u)
+                stack.append(u)
+    if len(live) == g.number_of_nodes():
+        return g
+    h = copy_graph(g)
+    h.remove_nodes_from([v for v in g.nodes if v not in live])
+    return h
+
+
 def measure(g, delays=unit_delays) -> Metrics:
+    g = live_graph(g)
     m = Metrics()
     m.fold = int(g.graph.get("fold", 1))
     shared = {}
