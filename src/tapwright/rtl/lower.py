@@ -94,7 +94,7 @@ from ..sfg.transforms.pipeline import stages as _stages
 
 __all__ = ["lower", "FilterBlock", "timing_of"]
 
-_IN = ("in",)
+from ..sfg.timing_tags import _IN, _canon, _mux_steps, timing_of  # noqa: F401 (re-exported)
 
 
 def _sname(s: str) -> str:
@@ -102,100 +102,8 @@ def _sname(s: str) -> str:
 
 
 # ------------------------------------------------------------------------------------------------
-# timing tags: ("s", root, d) a sample strobe = root's strobe delayed d cycles;
-#              ("c", root, d) a time-shared cone whose steps start 1 cycle after root's strobe + d.
-
-
-def _mux_steps(g, v) -> int:
-    n = g.nodes[v]
-    return int(n.get("steps", len(n["select"])))
-
-
-def _canon(t):
-    """A tag with accumulator roots unfolded: the done pulse of a cone started by
-    strobe (r, d) with K steps is that strobe K+1 cycles later, so
-    ("s", ("acc", (r, K)), d) is the same pulse as ("s", r, d + K + 1)."""
-    kind, root, d = t
-    if kind == "s" and isinstance(root, tuple) and root and root[0] == "acc":
-        r, K = root[1]
-        return _canon(("s", r, d + K + 1))
-    if kind == "s" and isinstance(root, tuple) and root and root[0] == "dec":
-        # the decimator counts the pulses of strobe (root[1], d): unfold that one, delay included
-        _, r, dd = _canon(("s", root[1], d))
-        return ("s", ("dec", r, root[2], root[3]), dd)
-    return t
-
-
-def timing_of(g) -> dict:
-    """Timing tag of every node (see the module docstring); raises GraphError when inconsistent."""
-    tag: dict = {}
-    order = eval_order(g)
-    changed = True
-    while changed:
-        changed = False
-        for v in order:
-            if v in tag:
-                continue
-            n = g.nodes[v]
-            k = n["kind"]
-            if k == "input":
-                tag[v] = ("s", _IN, 0)
-                changed = True
-                continue
-            known = [(u, e) for u, e in operands(g, v) if u in tag]
-            if not known:
-                continue
-            u, e = known[0]
-            t = tag[u]
-            t = (t[0], t[1], t[2] + e["pipe"])
-            if k == "decim":
-                if t[0] != "s":
-                    raise GraphError(f"decimator {v} inside a time-shared cone")
-                t = ("s", ("dec", t[1], int(n["factor"]), int(n["phase"])), t[2])
-            elif k == "mux":
-                if t[0] != "s":
-                    raise GraphError(f"multiplexer {v} fed by a time-shared cone")
-                K = _mux_steps(g, v)
-                if K < 2:
-                    raise GraphError(f"multiplexer {v} in a graph without a fold factor")
-                t = ("c", (t[1], K), t[2])
-            elif k == "acc":
-                if t[0] != "c":
-                    raise GraphError(f"accumulator {v} not fed by a time-shared cone")
-                if int(n["steps"]) != t[1][1]:
-                    raise GraphError(f"accumulator {v} has {n['steps']} steps, its multiplexers {t[1][1]}")
-                t = ("s", ("acc", t[1]), t[2])
-            tag[v] = t
-            changed = True
-    missing = [v for v in g.nodes if v not in tag]
-    if missing:
-        raise GraphError(f"nodes not reached from the input: {sorted(map(str, missing))[:5]}")
-    # consistency: every operand agrees
-    for v in order:
-        k = g.nodes[v]["kind"]
-        if k == "input":
-            continue
-        seen = set()
-        for u, e in operands(g, v):
-            t = tag[u]
-            seen.add(_canon((t[0], t[1], t[2] + e["pipe"])))
-            if e["z"] and t[0] != "s":
-                raise GraphError(f"edge {u}->{v}: a delay on a time-shared cone value")
-        if len(seen) != 1:
-            raise GraphError(f"node {v}: operands arrive at different times or rates {sorted(map(str, seen))}")
-        if k not in ("mux", "decim", "acc"):
-            (t,) = seen
-            if _canon(tag[v]) != t:
-                raise GraphError(f"node {v}: inconsistent timing")
-        if k != "mux" and tag[v][0] == "s" and any(tag[u][0] == "c" for u, _ in operands(g, v)) and k != "acc":
-            raise GraphError(f"node {v}: sample logic fed by a time-shared cone without an accumulator")
-        if k == "mux":
-            for u, e in operands(g, v):
-                if tag[u][0] != "s":
-                    raise GraphError(f"multiplexer {v} reads a cone value")
-    return tag
-
-
+# timing tags (sfg/timing_tags.py): ("s", root, d) a sample strobe = root's strobe delayed d
+# cycles; ("c", root, d) a time-shared cone whose steps start 1 cycle after root's strobe + d.
 # ------------------------------------------------------------------------------------------------
 
 

@@ -16,7 +16,7 @@ and t+1; the state is that of the first cycle after reset, everything zero):
 - ``in_ready``: high after reset; for folded graphs a down-counter holds it
   low for ``input_interval(g) - 1`` cycles after each accepted sample; the
   input strobe is ``in_valid & in_ready``.
-- strobes: one per timing tag of :func:`~tapwright.rtl.lower.timing_of`, a
+- strobes: one per timing tag of :func:`~tapwright.sfg.timing_tags.timing_of`, a
   strobe delayed by d cycles is a chain of d registers; a ``decim`` strobe is
   its source's strobe and (modulo-``factor`` count of the source's strobes ==
   ``phase``); an accumulator's strobe is its one-cycle ``done`` pulse.
@@ -132,7 +132,7 @@ class _Net:
     """The lowering's netlist, mirrored: same memoisation (so the same sharing) as ``rtl.lower._Lowering``."""
 
     def __init__(self, g):
-        from ..rtl.lower import timing_of
+        from .timing_tags import timing_of
 
         self.g = g
         self.tags = timing_of(g)
