@@ -43,11 +43,23 @@ def delay_function(device: str):
         if inputs <= 1:
             return 0
         k = max(2, prof.lut_inputs)
-        # a LUTk multiplexes k-2 data inputs at best (LUT6: 4:1); count levels
-        per = max(2, k - 2)
+        # a LUTk multiplexes k-2 data inputs at best (LUT6: 4:1); count levels; a family
+        # with wide-mux cells in the slice (ECP5 PFUMX/L6MUX21) does more per level
+        per = max(2, k - 2, getattr(prof, "mux_inputs_per_level", 0))
         return max(1, math.ceil(math.log(inputs, per)))
 
+    def fanout(g, v):
+        # a net driving many loads is slower than the probes' single-load nets
+        if not d.fanout_ns_per_doubling:
+            return 0.0
+        worst = max((len(g._succ[u]) for u in g._pred[v]), default=1)
+        return d.fanout_ns_per_doubling * math.log2(worst) if worst > 1 else 0.0
+
     def f(g, v):
+        t = f0(g, v)
+        return t + fanout(g, v) if t > 0 else t
+
+    def f0(g, v):
         n = g.nodes[v]
         k = n["kind"]
         if k == "mul":
@@ -75,8 +87,17 @@ def delay_function(device: str):
         if k == "acc":
             return adder(n["fmt"].bits) - d.adder_fixed_ns + d.route_ns
         if k == "quant":
-            # rounding adder and saturation compare/multiplex
-            return adder(n["fmt"].bits) - d.adder_fixed_ns + d.lut_ns + d.route_ns
+            ops = g._pred[v]
+            u = next(iter(ops)) if ops else None
+            shift = (g.nodes[u]["fmt"].frac - n["fmt"].frac) if u is not None else 0
+            wide = u is not None and g.nodes[u]["fmt"].bits - shift > n["fmt"].bits
+            t = 0.0
+            if shift > 0 and n["rounding"] != "truncate":
+                t += adder(n["fmt"].bits) - d.adder_fixed_ns + d.route_ns   # rounding adder
+            if wide and n["overflow"] == "saturate":
+                t += d.lut_ns + d.route_ns                                   # compare and clamp
+            # truncation and wrapping drop bits: wiring (CIC pruning, integrator registers)
+            return t
         if k == "mux":
             return lut_levels(int(n.get("ports", 2))) * (d.lut_ns + d.route_ns)
         return 0.0
