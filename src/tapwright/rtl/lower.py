@@ -94,7 +94,7 @@ from ..sfg.transforms.pipeline import stages as _stages
 
 __all__ = ["lower", "FilterBlock", "timing_of"]
 
-from ..sfg.timing_tags import _IN, _canon, _mux_steps, timing_of  # noqa: F401 (re-exported)
+from ..sfg.timing_tags import _IN, NetlistWalk, _canon, _mux_steps, timing_of  # noqa: F401 (re-exported)
 
 
 def _sname(s: str) -> str:
@@ -137,25 +137,20 @@ class FilterBlock(wiring.Component):
         return low.m
 
 
-class _Lowering:
+class _Lowering(NetlistWalk):
     def __init__(self, top: FilterBlock):
         self.top = top
         self.g = g = top.g
         self.m = m = Module()
         self.tags = top.tags
         self.rst = ResetSignal("sync")
-        self._strobe_memo: dict = {}
-        self._cone_memo: dict = {}
-        self._counter_memo: dict = {}
-        self._line_memo: dict = {}
-        self._pipe_memo: dict = {}
         self.val: dict = {}
         for v in eval_order(g):
             n = g.nodes[v]
             f = n["fmt"]
             self.val[v] = Signal(signed(f.bits), name=f"v_{_sname(v)}")
         self._ports()
-        self._lines_plan()
+        self._walk_init()
         for v in eval_order(g):
             self._node(v)
         out = top.out_node
@@ -181,29 +176,9 @@ class _Lowering:
         m.d.comb += self.s_in.eq(top.in_valid & top.in_ready & ~self.rst)
 
     # -------------------------------------------------------------------------------- strobes
-    def strobe(self, tag):
-        """1-bit strobe signal for an ("s", root, d) tag.
-
-        Roots: the input strobe; ("dec", r, F, P): strobe (r, d) where the
-        modulo-F count of its pulses is P; ("acc", r): the done pulse of the
-        cone started by root r, d cycles of cone delay. A tag delayed by one
-        more cycle is the same pulse one register later.
-        """
-        kind, root, d = tag
-        assert kind == "s"
-        key = (root, d)
-        if key in self._strobe_memo:
-            return self._strobe_memo[key]
-        lo = self._cone_base[root[1]] if root[0] == "acc" else 0
-        if root[0] == "dec" or d == lo:
-            s = self._root_strobe(root, d)
-        elif d > lo:
-            prev = self.strobe(("s", root, d - 1))
-            s = Signal(name=f"stb_{self._root_name(root)}_d{d}")
-            self.m.d.sync += s.eq(prev)
-        else:
-            raise GraphError(f"strobe {root} read {d} cycles after its source, before it exists")
-        self._strobe_memo[key] = s
+    def _delay_strobe(self, prev, root, d):
+        s = Signal(name=f"stb_{self._root_name(root)}_d{d}")
+        self.m.d.sync += s.eq(prev)
         return s
 
     def _root_name(self, root):
@@ -273,20 +248,6 @@ class _Lowering:
         return active, step
 
     # -------------------------------------------------------------------------------- delay lines
-    def _lines_plan(self):
-        g = self.g
-        self._line_len: dict = {}
-        self._cone_base: dict = {}
-        for v, n in g.nodes(data=True):
-            t = self.tags[v]
-            if n["kind"] == "mux":
-                self._cone_base[t[1]] = min(self._cone_base.get(t[1], t[2]), t[2])
-        for u, v, e in sorted(g.edges(data=True), key=lambda x: (str(x[0]), str(x[1]), x[2]["port"])):
-            cap = g.nodes[v]["kind"] == "mux"
-            need = e["z"] + 1 if cap else e["z"]
-            if need:
-                self._line_len[u] = max(self._line_len.get(u, 0), need)
-
     def line(self, u):
         """Delay line of ``u`` (element 0 = the most recent sample, after the strobe's edge)."""
         if u in self._line_memo:
@@ -302,28 +263,11 @@ class _Lowering:
         self._line_memo[u] = regs
         return regs
 
-    def tap(self, u, z, captured, pipe):
-        key = (u, z, captured, pipe)
-        if key in self._pipe_memo:
-            return self._pipe_memo[key]
-        if pipe == 0:
-            if captured:
-                s = self.line(u)[z]
-            elif z == 0:
-                s = self.val[u]
-            else:
-                s = self.line(u)[z - 1]
-        else:
-            prev = self.tap(u, z, captured, pipe - 1)
-            s = Signal(signed(len(prev)), name=f"p_{_sname(u)}_z{z}{'c' if captured else ''}_{pipe}",
-                       reset_less=True)
-            self.m.d.sync += s.eq(prev)
-        self._pipe_memo[key] = s
+    def _pipe_reg(self, prev, u, z, captured, pipe):
+        s = Signal(signed(len(prev)), name=f"p_{_sname(u)}_z{z}{'c' if captured else ''}_{pipe}",
+                   reset_less=True)
+        self.m.d.sync += s.eq(prev)
         return s
-
-    def operand(self, v, u, e):
-        cap = self.g.nodes[v]["kind"] == "mux"
-        return self.tap(u, e["z"], cap, e["pipe"])
 
     # -------------------------------------------------------------------------------- nodes
     def _node(self, v):

@@ -60,11 +60,10 @@ import numpy as np
 
 from ..fixed.formats import round_scalar
 from .graph import GraphError, eval_order, input_interval, operands, output_node
+from .timing_tags import _IN, NetlistWalk, timing_of
 from .transforms.pipeline import stages as _stages
 
 __all__ = ["CycleTrace", "CycleModel", "compile_cycles", "run_cycles"]
-
-_IN = ("in",)
 
 
 @dataclass
@@ -128,12 +127,10 @@ class _Unit:
         self.bits = bits
 
 
-class _Net:
+class _Net(NetlistWalk):
     """The lowering's netlist, mirrored: same memoisation (so the same sharing) as ``rtl.lower._Lowering``."""
 
     def __init__(self, g):
-        from .timing_tags import timing_of
-
         self.g = g
         self.tags = timing_of(g)
         self.out = output_node(g)
@@ -147,15 +144,10 @@ class _Net:
         self.comb_nodes: list = []
         self.units: list[_Unit] = []
         self._reg_unit: dict = {}
-        self._strobe_memo: dict = {}
-        self._cone_memo: dict = {}
-        self._counter_memo: dict = {}
-        self._line_memo: dict = {}
-        self._pipe_memo: dict = {}
         self._n = 0
         for v in self.order:
             self.width[self.val[v]] = g.nodes[v]["fmt"].bits
-        self._lines_plan()
+        self._walk_init()
         for v in self.order:
             self._node(v)
         self.out_valid = self.strobe(self.tags[self.out])
@@ -181,23 +173,9 @@ class _Net:
         return _width_range(self.width[var])
 
     # ---------------------------------------------------------------- strobes (as lower.strobe)
-    def strobe(self, tag):
-        kind, root, d = tag
-        if kind != "s":
-            raise GraphError(f"strobe of a cone tag {tag}")
-        key = (root, d)
-        if key in self._strobe_memo:
-            return self._strobe_memo[key]
-        lo = self._cone_base[root[1]] if root[0] == "acc" else 0
-        if root[0] == "dec" or d == lo:
-            s = self._root_strobe(root, d)
-        elif d > lo:
-            prev = self.strobe(("s", root, d - 1))
-            s = self._fresh("sb")
-            self._unit("strobe", [s], [prev], lambda s=s, p=prev: [f"{s} = {p}"], 1)
-        else:
-            raise GraphError(f"strobe {root} read {d} cycles after its source, before it exists")
-        self._strobe_memo[key] = s
+    def _delay_strobe(self, prev, root, d):
+        s = self._fresh("sb")
+        self._unit("strobe", [s], [prev], lambda s=s, p=prev: [f"{s} = {p}"], 1)
         return s
 
     def _root_strobe(self, root, d):
@@ -258,20 +236,6 @@ class _Net:
         return active, step
 
     # ---------------------------------------------------------------- delay lines and taps
-    def _lines_plan(self):
-        g = self.g
-        self._line_len: dict = {}
-        self._cone_base: dict = {}
-        for v, n in g.nodes(data=True):
-            t = self.tags[v]
-            if n["kind"] == "mux":
-                self._cone_base[t[1]] = min(self._cone_base.get(t[1], t[2]), t[2])
-        for u, v, e in g.edges(data=True):
-            cap = g.nodes[v]["kind"] == "mux"
-            need = e["z"] + 1 if cap else e["z"]
-            if need:
-                self._line_len[u] = max(self._line_len.get(u, 0), need)
-
     def line(self, u):
         """Delay-line registers of ``u`` (element 0: the most recent sample)."""
         if u in self._line_memo:
@@ -294,28 +258,11 @@ class _Net:
         self._line_memo[u] = regs
         return regs
 
-    def tap(self, u, z, captured, pipe):
-        key = (u, z, captured, pipe)
-        if key in self._pipe_memo:
-            return self._pipe_memo[key]
-        if pipe == 0:
-            if captured:
-                s = self.line(u)[z]
-            elif z == 0:
-                s = self.val[u]
-            else:
-                s = self.line(u)[z - 1]
-        else:
-            prev = self.tap(u, z, captured, pipe - 1)
-            s = self._fresh("p")
-            self.width[s] = self.width[prev]
-            self._unit("pipe", [s], [prev], lambda s=s, p=prev: [f"{s} = {p}"], self.width[s])
-        self._pipe_memo[key] = s
+    def _pipe_reg(self, prev, u, z, captured, pipe):
+        s = self._fresh("p")
+        self.width[s] = self.width[prev]
+        self._unit("pipe", [s], [prev], lambda s=s, p=prev: [f"{s} = {p}"], self.width[s])
         return s
-
-    def operand(self, v, u, e):
-        cap = self.g.nodes[v]["kind"] == "mux"
-        return self.tap(u, e["z"], cap, e["pipe"])
 
     # ---------------------------------------------------------------- nodes (as lower._node)
     def _node(self, v):

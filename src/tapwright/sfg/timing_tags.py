@@ -102,3 +102,81 @@ def timing_of(g) -> dict:
                 if tag[u][0] != "s":
                     raise GraphError(f"multiplexer {v} reads a cone value")
     return tag
+
+
+class NetlistWalk:
+    """The decisions a clocked implementation of a graph takes, shared by every back end that
+    builds one (the RTL lowering and the cycle-level interpreter), so both make the same
+    registers with the same sharing.
+
+    It plans the delay lines (``_line_len``: words per source node; ``_cone_base``: the
+    first cycle of every time-shared schedule) and walks strobes and operand taps with
+    memoisation: a strobe delayed by one more cycle is one more register after the
+    previous strobe; a tap ``pipe`` cycles late is one more register after the tap one
+    cycle earlier. A subclass says how those things are made:
+    ``_root_strobe(root, d)``, ``_delay_strobe(prev, root, d)``, ``line(u)`` and
+    ``_pipe_reg(prev, u, z, captured, pipe)``; it sets ``g``, ``tags`` and ``val``.
+    """
+
+    def _walk_init(self):
+        self._strobe_memo: dict = {}
+        self._cone_memo: dict = {}
+        self._counter_memo: dict = {}
+        self._line_memo: dict = {}
+        self._pipe_memo: dict = {}
+        g = self.g
+        self._line_len: dict = {}
+        self._cone_base: dict = {}
+        for v, n in g.nodes(data=True):
+            t = self.tags[v]
+            if n["kind"] == "mux":
+                self._cone_base[t[1]] = min(self._cone_base.get(t[1], t[2]), t[2])
+        for u, v, e in g.edges(data=True):
+            need = e["z"] + 1 if g.nodes[v]["kind"] == "mux" else e["z"]
+            if need:
+                self._line_len[u] = max(self._line_len.get(u, 0), need)
+
+    def strobe(self, tag):
+        """The 1-bit strobe of an ("s", root, d) tag.
+
+        Roots: the input strobe; ("dec", r, F, P): strobe (r, d) where the
+        modulo-F count of its pulses is P; ("acc", r): the done pulse of the
+        cone started by root r, d cycles of cone delay.
+        """
+        kind, root, d = tag
+        if kind != "s":
+            raise GraphError(f"strobe of a cone tag {tag}")
+        key = (root, d)
+        if key in self._strobe_memo:
+            return self._strobe_memo[key]
+        lo = self._cone_base[root[1]] if root[0] == "acc" else 0
+        if root[0] == "dec" or d == lo:
+            s = self._root_strobe(root, d)
+        elif d > lo:
+            s = self._delay_strobe(self.strobe(("s", root, d - 1)), root, d)
+        else:
+            raise GraphError(f"strobe {root} read {d} cycles after its source, before it exists")
+        self._strobe_memo[key] = s
+        return s
+
+    def tap(self, u, z, captured, pipe):
+        """``u`` delayed by ``z`` samples (read after the strobe's edge when ``captured``)
+        and ``pipe`` clock cycles."""
+        key = (u, z, captured, pipe)
+        if key in self._pipe_memo:
+            return self._pipe_memo[key]
+        if pipe == 0:
+            if captured:
+                s = self.line(u)[z]
+            elif z == 0:
+                s = self.val[u]
+            else:
+                s = self.line(u)[z - 1]
+        else:
+            s = self._pipe_reg(self.tap(u, z, captured, pipe - 1), u, z, captured, pipe)
+        self._pipe_memo[key] = s
+        return s
+
+    def operand(self, v, u, e):
+        cap = self.g.nodes[v]["kind"] == "mux"
+        return self.tap(u, e["z"], cap, e["pipe"])
