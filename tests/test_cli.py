@@ -232,3 +232,18 @@ def test_chain_candidate_builds_its_own_stages(tmp_path, capsys):
     assert prod == sheet["decimation"] == 8
     capsys.readouterr()
     assert main(["check", str(out)]) == 0
+
+
+def test_plan_does_not_depend_on_the_hash_seed(tmp_path):
+    # same spec, same bytes (common practice for generators): the plan must not follow
+    # Python's per-process string hashing (PYTHONHASHSEED), here two different seeds
+    import os
+    spec = Path(__file__).parent.parent / "specs" / "adc_halfband.toml"
+    outs = []
+    for seed in ("1", "4"):
+        env = dict(os.environ, PYTHONHASHSEED=seed)
+        r = subprocess.run([sys.executable, "-m", "tapwright", "plan", str(spec), "--json"],
+                           capture_output=True, text=True, env=env, timeout=300)
+        assert r.returncode == 0, r.stderr
+        outs.append(r.stdout)
+    assert outs[0] == outs[1]

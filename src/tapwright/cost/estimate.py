@@ -167,8 +167,8 @@ def estimate(g, device: str) -> Estimate:
     if prof.srl is not None:
         chains = {}
         for u, _, e in g.edges(data=True):
-            if e["pipe"] and u not in m.shared_mults:
-                chains.setdefault((u, e["z"]), set()).add(e["pipe"])
+            if e["pipe"]:
+                chains.setdefault((m.shared_mults.get(u, u), e["z"]), set()).add(e["pipe"])
         for (u, z), depths in chains.items():
             # a chain read at several depths packs segment by segment (each segment ends
             # at a tap)

@@ -44,7 +44,7 @@ class Metrics:
     latency: int = 0
     fold: int = 1
     zero_lsbs: dict = field(default_factory=dict)   # node -> always-zero low bits
-    shared_mults: set = field(default_factory=set)  # products merged with an identical earlier one
+    shared_mults: dict = field(default_factory=dict)  # product -> the identical one it merges into
 
     @property
     def n_mults(self) -> int:
@@ -147,7 +147,7 @@ def measure(g, delays=unit_delays) -> Metrics:
                 # the identical registers behind them
                 key = (u, e["z"], e["pipe"], int(n["coeff"]), int(n.get("coeff_frac", 0)))
                 if key in shared:
-                    m.shared_mults.add(v)
+                    m.shared_mults[v] = shared[key]
                     continue
                 shared[key] = v
             m.mults.append((g.nodes[u]["fmt"].bits, _coeff_bits(n), v))
@@ -180,9 +180,10 @@ def measure(g, delays=unit_delays) -> Metrics:
     zmax = defaultdict(int)
     pmax = defaultdict(int)
     captured = set()
-    for u, v, e in g.edges(data=True):
-        if u in m.shared_mults:
-            continue
+    for u0, v, e in g.edges(data=True):
+        # registers after merged products merge too: one chain per kept product, as deep
+        # as the deepest reader of either (independent of which of the two is kept)
+        u = m.shared_mults.get(u0, u0)
         if e["z"]:
             zmax[u] = max(zmax[u], e["z"])
         if e["pipe"]:
