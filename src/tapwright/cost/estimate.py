@@ -63,6 +63,13 @@ class Estimate:
 def _mux_luts(prof, width: int, inputs: int) -> int:
     if inputs <= 1:
         return 0
+    # measured on multiplexer probes (profile fields and their sources)
+    small = dict(getattr(prof, "mux_lut_per_bit", ()))
+    if inputs in small:
+        return int(round(small[inputs] * width))
+    per_input = getattr(prof, "mux_lut_per_input_bit", 0.0)
+    if per_input:
+        return int(round(per_input * (inputs - 1) * width))
     k = max(2, prof.lut_inputs)
     per = max(2, k - 2)   # data inputs one LUT multiplexes (LUT6: 4, LUT4: 2)
     luts_per_bit = math.ceil((inputs - 1) / (per - 1))
