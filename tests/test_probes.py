@@ -102,6 +102,7 @@ def test_xc7_25x18_registered_is_one_dsp48e1(tmp_path, reset_less):
 
 @pytest.mark.parametrize("device,a,b,signed_,expected", [
     ("xc7", 32, 32, True, 4),
+    ("xc7", 32, 24, True, 4),       # the A slices keep B = 24 > 18 and are cut again
     ("xc7", 18, 18, False, 2),      # unsigned 18 bits -> 19-bit signed: spills
     ("ecp5", 25, 18, True, 2),
     ("ecp5", 18, 18, True, 1),

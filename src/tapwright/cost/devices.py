@@ -501,9 +501,15 @@ def mult_blocks(profile, a_bits: int, b_bits: int, *, a_signed: bool = True,
     return _tile(mb, a_bits, b_bits, a_signed, b_signed)
 
 
-def _tile(mb: MultBlock, a: int, b: int, sa: bool, sb: bool) -> int:
-    """One pass of mul2dsp.v on an ``a x b`` ``$mul`` (re-entered for every slice)."""
-    if a < b:                                   # "wider operand on A"
+def _tile(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool = True) -> int:
+    """One pass of mul2dsp.v on an ``a x b`` ``$mul`` (re-entered for every slice).
+
+    Only the top-level ``$mul`` puts the wider operand on A; the slices are
+    ``$__mul_gen`` cells that keep their operand order, so a slice whose B is
+    still too wide is cut again along B [C: probe test_mult_tiling, xc7 32 x 24 ->
+    4 DSP48E1, not the 2 that a swap inside the slices would give].
+    """
+    if top and a < b:                           # "wider operand on A"
         a, b, sa, sb = b, a, sb, sa
     if a < mb.a_min or b < mb.b_min or a + b < mb.y_min:
         return 0                                # _TECHMAP_FAIL_: stays a soft multiplier
@@ -513,11 +519,11 @@ def _tile(mb: MultBlock, a: int, b: int, sa: bool, sb: bool) -> int:
     if a > mb.a_max:
         step = mb.a_partial - h
         n = (a - mb.a_max + step - 1) // step
-        return n * _tile(mb, mb.a_partial, b, sa, sb) + _tile(mb, a - n * step, b, sa, sb)
+        return n * _tile(mb, mb.a_partial, b, sa, sb, False) + _tile(mb, a - n * step, b, sa, sb, False)
     if b > mb.b_max:
         step = mb.b_partial - h
         n = (b - mb.b_max + step - 1) // step
-        return n * _tile(mb, a, mb.b_partial, sa, sb) + _tile(mb, a, b - n * step, sa, sb)
+        return n * _tile(mb, a, mb.b_partial, sa, sb, False) + _tile(mb, a, b - n * step, sa, sb, False)
     return 1 if a + b > mb.min_ab_sum else 0
 
 
