@@ -294,6 +294,44 @@ def rows_from_workdir(workdir, *, reestimate: bool = False) -> list[dict]:
     return rows
 
 
+def reestimate_rows(rows, spec_dir="specs") -> list[dict]:
+    """Rows of an earlier run (read from ``accuracy.csv``) with the estimates recomputed by
+    the current cost model: each spec is planned again once per device and each row's
+    candidate (by its label) estimated. The synthesized and placed-and-routed figures
+    are kept. A row whose candidate is no longer explored keeps its old estimate and
+    says so in ``error``."""
+    from ..plan import plan
+
+    out = []
+    plans = {}
+    for r in rows:
+        r = dict(r)
+        key = (r["spec"], r["device"])
+        if key not in plans:
+            sp = dataclasses.replace(_load(str(Path(spec_dir) / f"{r['spec']}.toml")), device=r["device"])
+            res = plan(sp)
+            plans[key] = {c.label: c for c in (res.exploration.candidates if res.exploration else [])}
+        cand = plans[key].get(r["candidate"])
+        if cand is None or r.get("error"):
+            r["error"] = r.get("error") or "candidate no longer explored; old estimate kept"
+            out.append(r)
+            continue
+        est = cand.estimate.as_dict()
+        for k in CATEGORIES:
+            r[f"est_{k}"] = est.get(k)
+            r[f"ratio_{k}"] = _ratio(est.get(k), r.get(f"syn_{k}"))
+        _fmax_fields(r, est, {"fmax_mhz": r.get("pnr_fmax")})
+        out.append(r)
+    return out
+
+
+def merge_rows(primary, secondary) -> list[dict]:
+    """``primary`` rows plus the ``secondary`` rows of designs that ``primary`` lacks
+    (same spec, device and candidate)."""
+    have = {(r["spec"], r["device"], r["candidate"]) for r in primary}
+    return list(primary) + [r for r in secondary if (r["spec"], r["device"], r["candidate"]) not in have]
+
+
 # ------------------------------------------------------------------------------------------------
 # tables and plot
 
@@ -526,7 +564,9 @@ def main(argv=None) -> int:
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--workdir", default=None, help="build folder (default: a temporary folder)")
     ap.add_argument("--quiet", action="store_true")
-    ap.add_argument("--from-csv", default=None, help="only rewrite the tables and plot from this CSV")
+    ap.add_argument("--from-csv", default=None,
+                    help="only rewrite the tables and plot from this CSV (with --from-workdir: "
+                         "add its designs that the workdir lacks)")
     ap.add_argument("--note", default="", help="text under the title of accuracy.md")
     ap.add_argument("--pnr", default="", help="devices to place and route for the clock (e.g. ecp5)")
     ap.add_argument("--pnr-max-size", type=int, default=MAX_SIZE,
@@ -536,10 +576,17 @@ def main(argv=None) -> int:
     ap.add_argument("--resume", action="store_true",
                     help="with --workdir: skip the jobs whose folder already has synth.json")
     ap.add_argument("--reestimate", action="store_true",
-                    help="with --from-workdir: estimate again with the current cost model")
+                    help="with --from-workdir or --from-csv: estimate again with the current cost "
+                         "model (a CSV row's spec is planned again from specs/)")
     a = ap.parse_args(argv)
     if a.from_workdir:
         rows = rows_from_workdir(a.from_workdir, reestimate=a.reestimate)
+        if a.from_csv:
+            # designs of an earlier run that this workdir lacks, estimated again the same way
+            old = read_csv(a.from_csv)
+            have = {(r["spec"], r["device"], r["candidate"]) for r in rows}
+            old = [r for r in old if (r["spec"], r["device"], r["candidate"]) not in have]
+            rows = merge_rows(rows, reestimate_rows(old) if a.reestimate else old)
         paths = write_tables(rows, a.out, note=a.note)
         for s in summarize(rows):
             print(f"{s['device']:6} {s['category']:6} n={s['n']:3} median {_pct(s['median']):>6} "
@@ -548,6 +595,8 @@ def main(argv=None) -> int:
         return 0
     if a.from_csv:
         rows = read_csv(a.from_csv)
+        if a.reestimate:
+            rows = reestimate_rows(rows)
         paths = write_tables(rows, a.out, note=a.note)
         print("wrote " + ", ".join(str(p) for p in paths.values()))
         return 0
