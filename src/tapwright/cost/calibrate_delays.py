@@ -432,6 +432,8 @@ def main(argv=None) -> int:
             table[dev] = mux_sweep(dev, wd)
         print(json.dumps(table, indent=2))
         return 0
+    if "xc7" in (args.device or []):
+        ap.error("--device xc7 needs --mux: there is no open place and route for xc7 here")
     for dev in args.device or ["ecp5", "ice40"]:
         wd = Path(args.workdir) / dev if args.workdir else None
         table[dev] = calibrate(dev, wd)
