@@ -93,7 +93,16 @@ def delay_function(device: str):
             # truncation and wrapping drop bits: wiring (CIC pruning, integrator registers)
             return t
         if k == "mux":
-            return lut_levels(int(n.get("ports", 2))) * (d.lut_ns + d.route_ns)
+            # the lowering selects with a case on the step counter: each input's select is
+            # decoded (step == s) in front of the multiplexer tree, one LUT level per k
+            # counter bits (Yosys builds $pmux from $eq cells; the synthesized time-shared
+            # designs hold these decoders, and ECP5 place and route of the calibration run
+            # times them on the critical path)
+            steps = int(n.get("steps", len(n.get("select") or ())))
+            step_bits = max(0, steps - 1).bit_length()
+            k_in = max(2, prof.lut_inputs)
+            decode = math.ceil(math.log(step_bits, k_in)) if step_bits > 1 else 0
+            return (lut_levels(int(n.get("ports", 2))) + decode) * (d.lut_ns + d.route_ns)
         return 0.0
 
     f.fixed_ns = d.adder_fixed_ns  # clock-to-out + setup + routing overhead per path
