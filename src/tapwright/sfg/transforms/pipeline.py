@@ -74,17 +74,26 @@ def _reg(e) -> bool:
 
 def arrival_times(g, delays=unit_delays) -> dict:
     """Arrival time of every node along combinational paths (registers reset to 0)."""
-    h = nx.DiGraph()
-    h.add_nodes_from(g.nodes)
+    nodes = g.nodes
+    preds = {v: [] for v in nodes}
+    succs = {v: [] for v in nodes}
     for u, v, e in g.edges(data=True):
-        if not _reg(e) and g.nodes[u]["kind"] != "acc":
-            h.add_edge(u, v)
-    if not nx.is_directed_acyclic_graph(h):
-        raise ValueError("combinational loop")
+        if not (e["z"] > 0 or e["pipe"] > 0) and nodes[u]["kind"] != "acc":
+            preds[v].append(u)
+            succs[u].append(v)
+    # Kahn's order over the combinational edges (a max-plus sum does not depend on it)
+    indeg = {v: len(p) for v, p in preds.items()}
+    ready = [v for v, k in indeg.items() if k == 0]
     arr = {}
-    for v in nx.topological_sort(h):
-        t0 = max((arr[u] for u in h.predecessors(v)), default=0.0)
-        arr[v] = t0 + node_delay(g, v, delays)
+    while ready:
+        v = ready.pop()
+        arr[v] = max((arr[u] for u in preds[v]), default=0.0) + node_delay(g, v, delays)
+        for w in succs[v]:
+            indeg[w] -= 1
+            if indeg[w] == 0:
+                ready.append(w)
+    if len(arr) != len(preds):
+        raise ValueError("combinational loop")
     return arr
 
 
