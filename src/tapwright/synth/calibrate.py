@@ -586,7 +586,10 @@ def main(argv=None) -> int:
             old = read_csv(a.from_csv)
             have = {(r["spec"], r["device"], r["candidate"]) for r in rows}
             old = [r for r in old if (r["spec"], r["device"], r["candidate"]) not in have]
-            rows = merge_rows(rows, reestimate_rows(old) if a.reestimate else old)
+            if a.reestimate:
+                # a design the planner no longer explores cannot be estimated again: left out
+                old = [r for r in reestimate_rows(old) if not r.get("error")]
+            rows = merge_rows(rows, old)
         paths = write_tables(rows, a.out, note=a.note)
         for s in summarize(rows):
             print(f"{s['device']:6} {s['category']:6} n={s['n']:3} median {_pct(s['median']):>6} "
