@@ -194,3 +194,24 @@ def test_estimates_against_the_recorded_synthesis(spec_name):
             q = c.estimate.fmax_mhz / r["pnr_fmax"]
             assert 0.8 <= q <= 1.2, (r["candidate"], c.estimate.fmax_mhz, r["pnr_fmax"])
     assert checked
+
+
+def test_reestimate_rows_and_merge(tiny, tmp_path):
+    # rows of an earlier run get the current model's estimate; the synthesized figures stay
+    import dataclasses
+
+    from tapwright.plan import plan
+    from tapwright.synth.calibrate import merge_rows, reestimate_rows
+    (tmp_path / "tiny_lp.toml").write_text(TINY)
+    res = plan(dataclasses.replace(tiny, device="ice40"))
+    cand = res.exploration.candidates[0]
+    old = {"spec": "tiny_lp", "device": "ice40", "candidate": cand.label, "structure": cand.structure,
+           "reason": "", "error": "", "est_dsp": -1, "syn_dsp": 7, "est_lut": -1, "syn_lut": 100,
+           "est_carry": -1, "syn_carry": 10, "est_ff": -1, "syn_ff": 50, "pnr_fmax": None}
+    gone = dict(old, candidate="no_such_structure")
+    new = reestimate_rows([old, gone], spec_dir=tmp_path)
+    assert new[0]["est_dsp"] == cand.estimate.dsp and new[0]["est_lut"] == cand.estimate.lut
+    assert new[0]["syn_dsp"] == 7 and new[0]["ratio_lut"] == round(cand.estimate.lut / 100, 4)
+    assert new[0]["error"] == "" and "no longer explored" in new[1]["error"]
+    merged = merge_rows([new[0]], [old, gone])
+    assert [r["candidate"] for r in merged] == [cand.label, "no_such_structure"]
