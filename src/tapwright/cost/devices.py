@@ -70,6 +70,11 @@ class RegisterAbsorption:
     post_adder_bits: int
     cascade: bool
     source: str
+    #: the register after a product by an even constant stays in the fabric (the product
+    #: is a narrower one shifted, which the packer does not match)
+    const_output_odd_only: bool = False
+    #: ... and after a product by a positive constant in a single block as well
+    const_output_single_negative_only: bool = False
 
 
 @dataclass(frozen=True)
@@ -374,7 +379,14 @@ ICE40 = DeviceProfile(
     regs=RegisterAbsorption(
         input_regs=1, pipeline_reg=1, output_reg=1, input_reset_ok=False, output_reset_ok=False,
         post_adder_bits=32, cascade=False,
-        source="[S: Yosys techlibs/ice40/ice40_dsp.pmg: A/B/C/D registers must be $dff/$dffe "
+        const_output_odd_only=True, const_output_single_negative_only=True,
+        source="[C: register after x * c, 16-bit x, one SB_MAC16 (reset_less, measured here): "
+               "in the block for c = -3, -255, -1025, -1401, -4095, -4097, in the fabric for c = 3, "
+               "255, 1000, -1000, 1025, 1401, 4095, 4097; netlists of the calibration run: "
+               "adc_halfband halfband+polyphase/p0.001 absorbs it for exactly its 3 negative odd "
+               "coefficients of 12, vib_bandpass_iir sos_df1/p73.1 (products over 3 SB_MAC16) for "
+               "its 8 odd coefficients of 15, sign regardless]; "
+               "[S: Yosys techlibs/ice40/ice40_dsp.pmg: A/B/C/D registers must be $dff/$dffe "
                "without reset; pipeline {F,J,K,G}/H, output O]; [C: 16x16 reset_less -> 1 SB_MAC16, "
                "0 FF; with reset -> FFs left in fabric]"),
     parts=(

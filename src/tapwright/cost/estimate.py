@@ -135,7 +135,14 @@ def estimate(g, device: str) -> Estimate:
                     soft_mult_adders.append(a + b)
         # registers the block may absorb: pipeline registers right after the product
         pipe_out = [e["pipe"] for _, _, e in g.out_edges(v, data=True)]
-        if pipe_out and prof.regs is not None:
+        out_ok = True
+        if prof.regs is not None and n.get("table") is None:
+            c = int(n["coeff"])
+            if prof.regs.const_output_odd_only and not c & 1:
+                out_ok = False
+            if prof.regs.const_output_single_negative_only and blocks == 1 and c > 0:
+                out_ok = False
+        if pipe_out and prof.regs is not None and out_ok:
             stages = min(pipe_out)
             ab = absorbed_registers(prof, input_stages=0, pipeline_stages=min(stages, 1),
                                     output_stages=max(0, stages - 1), has_reset=False)
@@ -145,6 +152,22 @@ def estimate(g, device: str) -> Estimate:
         # the DSP packers do not take (calibration run: xc7 and ice40 synthesize the
         # same flip-flops as ECP5, which has no post-adder)
     ff -= absorbed
+    # a short pipeline chain into a hard product, read by nothing else: the block's input
+    # registers (iCE40 A_REG/B_REG on all 12 SB_MAC16 of adc_halfband halfband+polyphase/p0.001
+    # and timeshared+polyphase/k2/p0.001, calibration-run netlists; probe
+    # test_ice40_16x16_reset_less_is_one_mac). Longer chains are left to the shift-register rule.
+    if prof.regs is not None and prof.regs.input_regs:
+        readers = {}
+        for u, w, e in g.edges(data=True):
+            if e["pipe"]:
+                readers.setdefault((m.shared_mults.get(u, u), e["z"], e["pipe"]), set()).add(w)
+        hard_now = {v for a, b, v in m.mults if mult_blocks(prof, a, b) >= 1}
+        for (u, z, p), ws in readers.items():
+            w, = ws if len(ws) == 1 else (None,)
+            if w in hard_now and p <= prof.regs.input_regs:
+                bits = g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
+                ff -= p * bits
+                absorbed += p * bits
     # short sample-delay lines read only by hard products: the blocks' input registers
     # (xc7 A/B registers; calibration run: vib_bandpass_iir sos_df1 on xc7, 57 DSP48E1
     # and 31 flip-flops in all)
