@@ -8,6 +8,7 @@ extra_info (`python -m pytest tests/test_bench_synth.py --benchmark-enable
 from __future__ import annotations
 
 import dataclasses
+import math
 import time
 from pathlib import Path
 
@@ -28,9 +29,11 @@ def test_bench_estimate_all_vs_one_synthesis(benchmark, tmp_path, device):
     spec = dataclasses.replace(load_spec(SPEC), device=device)
     res = plan(spec)
     ex = benchmark.pedantic(explore, args=(res.design.fixed, spec), rounds=1, iterations=1)
-    t0 = time.perf_counter()
-    explore(res.design.fixed, dataclasses.replace(spec, name="again"))  # a fresh structural cache key
-    t_est = time.perf_counter() - t0
+    t_est = math.inf
+    for i in range(3):   # best of three, each with a fresh structural cache key
+        t0 = time.perf_counter()
+        explore(res.design.fixed, dataclasses.replace(spec, name=f"again{i}"))
+        t_est = min(t_est, time.perf_counter() - t0)
     best = ex.recommended or ex.closest
     build_design(res, structure=best.label, out=tmp_path / "d", force=True)
     t0 = time.perf_counter()
