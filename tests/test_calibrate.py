@@ -215,3 +215,18 @@ def test_reestimate_rows_and_merge(tiny, tmp_path):
     assert new[0]["error"] == "" and "no longer explored" in new[1]["error"]
     merged = merge_rows([new[0]], [old, gone])
     assert [r["candidate"] for r in merged] == [cand.label, "no_such_structure"]
+
+
+def test_cli_refuses_missing_inputs(tmp_path, capsys):
+    # bad input: exit status 2, a message naming the option and what is allowed, nothing written
+    from tapwright.synth.calibrate import main
+    out = tmp_path / "out"
+    for argv in (["--from-csv", str(tmp_path / "none.csv")],
+                 ["--from-workdir", str(tmp_path / "none")],
+                 ["--reestimate"]):
+        with pytest.raises(SystemExit) as exc:
+            main(argv + ["--out", str(out)])
+        assert exc.value.code == 2
+        err = capsys.readouterr().err
+        assert argv[0] in err and "Traceback" not in err
+    assert not out.exists()

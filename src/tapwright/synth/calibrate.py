@@ -579,6 +579,13 @@ def main(argv=None) -> int:
                     help="with --from-workdir or --from-csv: estimate again with the current cost "
                          "model (a CSV row's spec is planned again from specs/)")
     a = ap.parse_args(argv)
+    if a.from_csv and not Path(a.from_csv).is_file():
+        ap.error(f"--from-csv {a.from_csv}: no such file (allowed: an accuracy.csv this tool wrote)")
+    if a.from_workdir and not any(Path(a.from_workdir).glob("*/synth.json")):
+        ap.error(f"--from-workdir {a.from_workdir}: no */synth.json below it (allowed: the --workdir "
+                 "of an earlier run)")
+    if a.reestimate and not (a.from_workdir or a.from_csv):
+        ap.error("--reestimate needs --from-workdir or --from-csv")
     if a.from_workdir:
         rows = rows_from_workdir(a.from_workdir, reestimate=a.reestimate)
         if a.from_csv:
