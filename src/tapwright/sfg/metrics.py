@@ -11,6 +11,8 @@ Registers are counted as the RTL lowering builds them:
 """
 from __future__ import annotations
 
+from functools import lru_cache
+
 import math
 from collections import defaultdict
 from dataclasses import dataclass, field
@@ -83,7 +85,11 @@ def product_coeff_bits(n) -> int:
     """
     if n.get("table") is not None:
         return _coeff_bits(n)
-    c = int(n["coeff"])
+    return _odd_part_bits(int(n["coeff"]))
+
+
+@lru_cache(maxsize=4096)
+def _odd_part_bits(c: int) -> int:
     if c:
         c >>= (c & -c).bit_length() - 1
     return bits_for_range(min(c, 0), max(c, 0))
