@@ -152,6 +152,7 @@ def estimate(g, device: str) -> Estimate:
         # the DSP packers do not take (calibration run: xc7 and ice40 synthesize the
         # same flip-flops as ECP5, which has no post-adder)
     ff -= absorbed
+    hard = {v for a, b, v in m.mults if mult_blocks(prof, a, b) >= 1}
     # a short pipeline chain into a hard product, read by nothing else: the block's input
     # registers (iCE40 A_REG/B_REG on all 12 SB_MAC16 of adc_halfband halfband+polyphase/p0.001
     # and timeshared+polyphase/k2/p0.001, calibration-run netlists; probe
@@ -161,10 +162,11 @@ def estimate(g, device: str) -> Estimate:
         for u, w, e in g.edges(data=True):
             if e["pipe"]:
                 readers.setdefault((m.shared_mults.get(u, u), e["z"], e["pipe"]), set()).add(w)
-        hard_now = {v for a, b, v in m.mults if mult_blocks(prof, a, b) >= 1}
         for (u, z, p), ws in readers.items():
-            w, = ws if len(ws) == 1 else (None,)
-            if w in hard_now and p <= prof.regs.input_regs:
+            if len(ws) != 1:
+                continue
+            (w,) = ws
+            if w in hard and p <= prof.regs.input_regs:
                 bits = g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
                 ff -= p * bits
                 absorbed += p * bits
@@ -207,7 +209,6 @@ def estimate(g, device: str) -> Estimate:
     # adders the hard blocks take in: pre-adders in front of a product, and one tree adder
     # after each product (its post-adder), per the profile's probe-measured rules
     in_block = set()
-    hard = {v for a, b, v in m.mults if mult_blocks(prof, a, b) >= 1}
     pre_bits = getattr(prof, "pre_adder_bits", 0)
     if pre_bits:
         for width, role, v in m.adders:

@@ -11,11 +11,10 @@ Registers are counted as the RTL lowering builds them:
 """
 from __future__ import annotations
 
-from functools import lru_cache
-
 import math
 from collections import defaultdict
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 from ..fixed.formats import bits_for_range
 from .graph import operands
