@@ -36,7 +36,8 @@ from .cost.estimate import Estimate, estimate
 from .cost.timing import delay_function, target_period
 from .fixed.stages import FixedDesign
 from .sfg.metrics import is_free_coeff
-from .sfg.recipe import Recipe, realize
+from .sfg.graph import edge_list
+from .sfg.recipe import Recipe, realize, structure_graph, unpipelined_critical_ns
 
 
 @dataclass
@@ -189,8 +190,9 @@ def fold_factors(T: int, K_max: int) -> list[int]:
     return sorted(k for k in Ks if 2 <= k <= min(K_max, T))
 
 
-def recipes(fixed: FixedDesign, spec) -> list[Recipe]:
-    """Every candidate recipe for the spec's device and clock."""
+def recipes(fixed: FixedDesign, spec, *, name: str | None = None) -> list[Recipe]:
+    """Every candidate recipe for the spec's device and clock (``name``: the graphs' name,
+    by default the spec's, as in :func:`explore`, which then reuses the structures)."""
     dev = spec.device
     C = spec.cycles_per_sample
     period_target = target_period(dev, spec.clock)
@@ -210,8 +212,8 @@ def recipes(fixed: FixedDesign, spec) -> list[Recipe]:
         for sid, tr, form in reduced:
             M = max(s.decimation for s in firs) if "polyphase" in tr else 1
             K_max = C * M
-            g = realize(fixed, Recipe(sid, tr, register_output=False, delay_model=dev))
-            T = sum(1 for _, n in g.nodes(data=True) if n["kind"] == "mul" and not is_free_coeff(n["coeff"]))
+            g = structure_graph(fixed, Recipe(sid, tr, delay_model=dev), name=name or spec.name)
+            T = sum(1 for n in g._node.values() if n["kind"] == "mul" and not is_free_coeff(n["coeff"]))
             Ks = fold_factors(T, K_max)
             if big:
                 Ks = Ks[-1:]
@@ -280,7 +282,7 @@ def _pareto(cands):
 
 def explore(fixed: FixedDesign, spec, *, name: str | None = None) -> Exploration:
     """Estimate every candidate of one design; rank; pick the recommendation (or the closest miss)."""
-    return _rank(spec, [(fixed, r, None) for r in recipes(fixed, spec)], fixed, name=name)
+    return _rank(spec, [(fixed, r, None) for r in recipes(fixed, spec, name=name)], fixed, name=name)
 
 
 def _rank(spec, sources, lb_fixed, *, name=None) -> Exploration:
@@ -288,14 +290,22 @@ def _rank(spec, sources, lb_fixed, *, name=None) -> Exploration:
     cands = []
     seen = {}
     shapes = set()
+    unpiped = set()
+    delays = delay_function(spec.device)
     for fixed, r, chain in sources:
         if r.label in seen:
             continue
-        g = realize(fixed, r, name=name or spec.name, delays=delay_function(spec.device))
+        skey = (id(fixed), r.structure, r.transforms, r.stage_transforms, r.fold, r.stage_folds, r.sos_form)
+        if r.period is None and r.register_output:
+            unpiped.add(skey)
+        elif r.register_output and skey in unpiped and \
+                unpipelined_critical_ns(fixed, r, name=name or spec.name, delays=delays) <= r.period:
+            continue   # the target inserts no register: the same candidate as the unpipelined one
+        g = realize(fixed, r, name=name or spec.name, delays=delays)
         # the same structure with the same pipeline registers is the same candidate: skip
         # its estimate (the signature check below would drop it anyway)
         shape = (id(fixed), r.structure, r.transforms, r.stage_transforms, r.fold, r.stage_folds,
-                 r.sos_form, tuple(e for _, _, e in g.edges(data="pipe")))
+                 r.sos_form, tuple(e["pipe"] for _, _, e in edge_list(g)))
         if shape in shapes:
             continue
         shapes.add(shape)
@@ -350,13 +360,14 @@ def _chain_stage_transforms(fixed: FixedDesign, stages_desc=None):
     return tuple(out)
 
 
-def chain_recipes(fixed: FixedDesign, spec, tag: str) -> list[Recipe]:
+def chain_recipes(fixed: FixedDesign, spec, tag: str, *, name: str | None = None) -> list[Recipe]:
     """Unfolded, folded-to-the-clock, pipelined variants of one chain."""
     dev = spec.device
     C = spec.cycles_per_sample
     st_tr = _chain_stage_transforms(fixed)
     base = Recipe("chain", stage_transforms=st_tr, delay_model=dev, tag=tag)
-    g = realize(fixed, Recipe("chain", stage_transforms=st_tr, register_output=False, delay_model=dev, tag=tag))
+    g = structure_graph(fixed, Recipe("chain", stage_transforms=st_tr, delay_model=dev, tag=tag),
+                        name=name or spec.name)
     folds = []
     rate = 1
     any_fold = False
@@ -384,10 +395,10 @@ def explore_all(spec, single_fixed: FixedDesign | None, chains=(), *, name: str 
     """Single-stage candidates and every chain's candidates, ranked together."""
     sources = []
     if single_fixed is not None:
-        sources += [(single_fixed, r, None) for r in recipes(single_fixed, spec)]
+        sources += [(single_fixed, r, None) for r in recipes(single_fixed, spec, name=name)]
     for ch in chains:
         if not ch.ok:
             continue
-        sources += [(ch.fixed, r, ch) for r in chain_recipes(ch.fixed, spec, ch.name)]
+        sources += [(ch.fixed, r, ch) for r in chain_recipes(ch.fixed, spec, ch.name, name=name)]
     return _rank(spec, sources, single_fixed if single_fixed is not None else
                  (chains[0].fixed if chains else None), name=name)

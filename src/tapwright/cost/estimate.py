@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from ..sfg.graph import input_interval, operands
+from ..sfg.graph import edge_list, input_interval, operands
 from ..sfg.metrics import live_graph, measure, product_coeff_bits
 from . import timing
 from .devices import absorbed_registers, adder_cells, get_profile, mult_blocks, shift_register_cells
@@ -134,7 +134,7 @@ def estimate(g, device: str) -> Estimate:
                 else:
                     soft_mult_adders.append(a + b)
         # registers the block may absorb: pipeline registers right after the product
-        pipe_out = [e["pipe"] for _, _, e in g.out_edges(v, data=True)]
+        pipe_out = [e["pipe"] for kd in g._succ[v].values() for e in kd.values()]
         out_ok = True
         if prof.regs is not None and n.get("table") is None:
             c = int(n["coeff"])
@@ -159,7 +159,7 @@ def estimate(g, device: str) -> Estimate:
     # test_ice40_16x16_reset_less_is_one_mac). Longer chains are left to the shift-register rule.
     if prof.regs is not None and prof.regs.input_regs:
         readers = {}
-        for u, w, e in g.edges(data=True):
+        for u, w, e in edge_list(g):
             if e["pipe"]:
                 readers.setdefault((m.shared_mults.get(u, u), e["z"], e["pipe"]), set()).add(w)
         for (u, z, p), ws in readers.items():
@@ -175,7 +175,7 @@ def estimate(g, device: str) -> Estimate:
     # and 31 flip-flops in all)
     if prof.regs is not None and prof.mult is not None:
         zlines = {}
-        for u, w, e in g.edges(data=True):
+        for u, w, e in edge_list(g):
             if e["z"]:
                 zlines.setdefault(u, []).append((w, e["z"]))
         for u, readers in zlines.items():
@@ -192,7 +192,7 @@ def estimate(g, device: str) -> Estimate:
     srl_cells = 0
     if prof.srl is not None:
         chains = {}
-        for u, _, e in g.edges(data=True):
+        for u, _, e in edge_list(g):
             if e["pipe"]:
                 chains.setdefault((m.shared_mults.get(u, u), e["z"]), set()).add(e["pipe"])
         for (u, z), depths in chains.items():
@@ -267,7 +267,7 @@ def estimate(g, device: str) -> Estimate:
         lut += l
         carry += c
     # saturation: compare the dropped MSBs and multiplex the limits, about a LUT per output bit
-    for v, n in g.nodes(data=True):
+    for v, n in g._node.items():
         if n["kind"] == "quant" and n["overflow"] == "saturate":
             (u, _), = operands(g, v)
             if g.nodes[u]["fmt"].bits > n["fmt"].bits + (g.nodes[u]["fmt"].frac - n["fmt"].frac):

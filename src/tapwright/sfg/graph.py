@@ -104,7 +104,7 @@ def _port(t):
 
 
 def output_node(g) -> str:
-    outs = [n for n, k in g.nodes(data="kind") if k == "output"]
+    outs = [n for n, d in g._node.items() if d["kind"] == "output"]
     if len(outs) != 1:
         raise GraphError(f"expected one output node, found {len(outs)}")
     return outs[0]
@@ -282,8 +282,32 @@ def check(g) -> None:
     eval_order(g)
 
 
+def edge_list(g) -> list:
+    """Every edge as ``(u, v, data)``, in networkx's order; a sealed graph keeps the list."""
+    c = g.graph.get("_edges")
+    if c is not None and c[0] == len(g._node):
+        return c[1]
+    out = [(u, v, e) for u, nbrs in g._succ.items() for v, kd in nbrs.items() for e in kd.values()]
+    if g.graph.get("_sealed"):
+        g.graph["_edges"] = (len(g._node), out)
+    return out
+
+
+def seal(g) -> nx.MultiDiGraph:
+    """Mark ``g`` as finished: nothing changes it any more, so figures of its topology
+    (node delays, evaluation order, zero low bits) may be kept in its ``_`` entries.
+
+    The structural graphs cached by :mod:`tapwright.sfg.recipe` and the graphs
+    :func:`~tapwright.sfg.transforms.pipeline.pipeline` returns are sealed; transforms
+    work on :func:`copy_graph` copies, which are not.
+    """
+    g.graph["_sealed"] = True
+    return g
+
+
 def copy_graph(g) -> nx.MultiDiGraph:
-    """An independent copy (node and edge attribute dicts copied, graph dict shallow).
+    """An independent copy (node and edge attribute dicts copied, graph dict shallow
+    without the ``_`` entries, which cache figures of this graph's topology).
 
     Built directly on networkx's adjacency dicts (the MultiDiGraph layout:
     ``_succ[u][v]`` and ``_pred[v][u]`` are the same key dict), about five times
@@ -291,7 +315,7 @@ def copy_graph(g) -> nx.MultiDiGraph:
     checks that it equals ``copy()``.
     """
     h = g.__class__()
-    h.graph.update(g.graph)
+    h.graph.update((k, v) for k, v in g.graph.items() if not k.startswith("_"))  # "_": caches
     h._node.update((n, d.copy()) for n, d in g._node.items())
     succ = {u: {v: {k: d.copy() for k, d in kd.items()} for v, kd in nbrs.items()}
             for u, nbrs in g._succ.items()}
@@ -304,8 +328,19 @@ def condensed_order(g) -> list:
     """Strongly connected components in topological order (members in name order).
 
     Feed-forward graphs take Kahn's algorithm on the adjacency dicts; only a
-    graph with loops pays for networkx's condensation.
+    graph with loops pays for networkx's condensation. A sealed graph keeps it in its
+    ``_order`` entry (see :func:`seal`; the callers hold the list read-only).
     """
+    c = g.graph.get("_order")
+    if c is not None and c[0] == len(g._node):
+        return c[1]
+    comps = _condensed_order(g)
+    if g.graph.get("_sealed"):
+        g.graph["_order"] = (len(g._node), comps)
+    return comps
+
+
+def _condensed_order(g) -> list:
     succ, pred = g._succ, g._pred
     indeg = {v: len(p) - (1 if v in p else 0) for v, p in pred.items()}
     ready = [v for v, d in indeg.items() if d == 0]
@@ -350,7 +385,7 @@ def eval_order_all(g) -> list:
 
 def input_interval(g) -> int:
     """Clock cycles between accepted input samples that the structure needs."""
-    if not any(n["kind"] == "mux" for _, n in g.nodes(data=True)):
+    if not any(n["kind"] == "mux" for n in g._node.values()):
         return 1
     rd = rate_divisors(g)
     worst = 1

@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 
 from ..fixed.formats import bits_for_range
-from .graph import operands
+from .graph import edge_list, operands
 from .transforms.pipeline import critical_path, latency, unit_delays
 
 
@@ -101,6 +101,16 @@ def zero_lsbs(g) -> dict:
     register of such a word costs ``bits - zero_lsbs`` flip-flops (calibration run: the
     ECP5 halfband centre tap 1/2 carried K+1 cycles, 16 zero bits per stage dropped).
     """
+    c = g.graph.get("_tz")
+    if c is not None and c[0] == len(g._node):
+        return c[1]
+    tz = _zero_lsbs(g)
+    if g.graph.get("_sealed"):    # a finished graph keeps it (sfg.graph.seal)
+        g.graph["_tz"] = (len(g._node), tz)
+    return tz
+
+
+def _zero_lsbs(g) -> dict:
     from .graph import condensed_order
     tz: dict = {}
     for comp in condensed_order(g):
@@ -159,7 +169,7 @@ def measure(g, delays=unit_delays) -> Metrics:
     m = Metrics()
     m.fold = int(g.graph.get("fold", 1))
     shared = {}
-    for v, n in g.nodes(data=True):
+    for v, n in g._node.items():
         k = n["kind"]
         if k == "mul":
             if n.get("table") is None and is_free_coeff(n["coeff"]):
@@ -197,14 +207,14 @@ def measure(g, delays=unit_delays) -> Metrics:
             shift = g.nodes[u]["fmt"].frac - n["fmt"].frac
             if shift > 0 and n["rounding"] != "truncate":
                 m.round_adders.append(g.nodes[u]["fmt"].bits - shift + 1)
-    for v, n in g.nodes(data=True):
+    for v, n in g._node.items():
         if n["kind"] == "mul" and n.get("table") is not None:
             m.tables.append((len(n["table"]), _coeff_bits(n)))
     # registers
     zmax = defaultdict(int)
     pmax = defaultdict(int)
     captured = set()
-    for u0, v, e in g.edges(data=True):
+    for u0, v, e in edge_list(g):
         # registers after merged products merge too: one chain per kept product, as deep
         # as the deepest reader of either (independent of which of the two is kept)
         u = m.shared_mults.get(u0, u0)
@@ -231,7 +241,7 @@ def measure(g, delays=unit_delays) -> Metrics:
     if m.fold > 1:
         m.counter_bits = max(1, math.ceil(math.log2(m.fold + 1)))
     # one phase counter per stage and rate change, plus the valid bits of the pipeline
-    ctrs = {(n.get("stage"), n["factor"]) for _, n in g.nodes(data=True) if n["kind"] == "decim"}
+    ctrs = {(n.get("stage"), n["factor"]) for n in g._node.values() if n["kind"] == "decim"}
     m.counter_bits += sum(max(1, math.ceil(math.log2(f))) for _, f in ctrs)
     m.reg_bits = m.zreg_bits + m.pipe_bits + m.acc_bits + m.counter_bits + m.latency
     m.reg_words = len(zmax) + len(pmax)

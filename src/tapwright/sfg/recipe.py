@@ -16,7 +16,8 @@ from dataclasses import dataclass
 
 from ..fixed.stages import FixedDesign
 from . import build as _build
-from .graph import copy_graph
+from .graph import copy_graph, seal
+from .metrics import zero_lsbs
 from .transforms import pipeline as _pipe
 from .transforms import shiftadd as _sa
 from .transforms import structure as _st
@@ -132,7 +133,8 @@ def _structural(design, recipe, name):
     hit = _CACHE.get(key)
     if hit is not None and hit[0] is design:
         return hit[1]
-    g = _realize_structure(design, recipe, name)
+    g = seal(_realize_structure(design, recipe, name))
+    zero_lsbs(g)   # kept in the sealed graph; pipelining hands it on to every target
     if len(_CACHE) >= _CACHE_MAX:
         _CACHE.pop(next(iter(_CACHE)))
     _CACHE[key] = (design, g)
@@ -160,6 +162,26 @@ def realize(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays
     return g
 
 
+def structure_graph(design: FixedDesign, recipe: Recipe, *, name: str = "filter"):
+    """The recipe's structure before pipelining: the cached, sealed graph itself (read only;
+    :func:`realize` gives a graph of one's own)."""
+    return _structural(design, recipe, name)
+
+
+def unpipelined_critical_ns(design: FixedDesign, recipe: Recipe, *, name: str = "filter", delays=None) -> float:
+    """Longest combinational path of the structure with no pipeline register: pipelining
+    to a period at or above it inserts nothing (the explorer skips such targets)."""
+    g0 = _structural(design, recipe, name)
+    if delays is None:
+        from ..cost.timing import delay_function
+        delays = delay_function(recipe.delay_model)
+    c = g0.graph.get("_crit0")
+    if c is None or c[0] is not delays:
+        c = (delays, max(_pipe.arrival_times(g0, delays, cut_pipes=False).values(), default=0.0))
+        g0.graph["_crit0"] = c
+    return c[1]
+
+
 _BASE: dict = {}
 
 
@@ -177,13 +199,32 @@ def _base(design, name, fir_adder, sos_form):
     return g
 
 
+_PREFIX: dict = {}
+
+
+def _transformed(design, name, fir_adder, sos_form, transforms):
+    """The base graph after ``transforms`` (in order), cached per prefix: candidates share
+    their first transforms (symmetric, then time-shared by 2, 3, 4; transposed, then
+    symmetric, then shift-add), and every transform copies its input."""
+    if not transforms:
+        return _base(design, name, fir_adder, sos_form)
+    key = (id(design), name, fir_adder, sos_form, transforms)
+    hit = _PREFIX.get(key)
+    if hit is not None and hit[0] is design:
+        return hit[1]
+    g = _TRANSFORM[transforms[-1]](_transformed(design, name, fir_adder, sos_form, transforms[:-1]))
+    if len(_PREFIX) >= 24:
+        _PREFIX.pop(next(iter(_PREFIX)))
+    _PREFIX[key] = (design, g)
+    return g
+
+
 def _realize_structure(design: FixedDesign, recipe: Recipe, name: str):
     chain = "transposed" in recipe.transforms and recipe.stage_transforms is None
-    g = _base(design, name, "chain" if chain else "tree", recipe.sos_form)
     if recipe.stage_transforms is None:
-        for t in recipe.transforms:
-            g = _TRANSFORM[t](g)
+        g = _transformed(design, name, "chain" if chain else "tree", recipe.sos_form, tuple(recipe.transforms))
     else:
+        g = _base(design, name, "chain" if chain else "tree", recipe.sos_form)
         # per stage (a chain): each transform on the stages that list it, in canonical order
         order = [t for t in _TRANSFORM if any(t in st for st in recipe.stage_transforms)]  # "cic" is a marker
         for t in order:

@@ -38,7 +38,7 @@ import math
 
 import networkx as nx
 
-from ..graph import condensed_order, copy_graph, eval_order
+from ..graph import condensed_order, copy_graph, eval_order, seal
 
 
 def node_delay(g, v, delays) -> float:
@@ -46,6 +46,22 @@ def node_delay(g, v, delays) -> float:
     if "t" in d:
         return float(d["t"])
     return float(delays(g, v)) if delays else 1.0
+
+
+def node_delays(g, delays) -> dict:
+    """Delay of every node, kept in the graph's ``_delays`` entry for this delay function.
+
+    A node's delay depends on its kind, formats, operands and fan-out, none of which
+    pipelining changes: :func:`pipeline` hands the table of its input graph to the graph
+    it returns. Only sealed graphs keep it (:func:`~tapwright.sfg.graph.seal`).
+    """
+    c = g.graph.get("_delays")
+    if c is not None and c[0] is delays and len(c[1]) == len(g):
+        return c[1]
+    nd = {v: node_delay(g, v, delays) for v in g.nodes}
+    if g.graph.get("_sealed"):
+        g.graph["_delays"] = (delays, nd)
+    return nd
 
 
 def unit_delays(g, v) -> float:
@@ -72,22 +88,31 @@ def _reg(e) -> bool:
     return e["z"] > 0 or e["pipe"] > 0
 
 
-def arrival_times(g, delays=unit_delays) -> dict:
-    """Arrival time of every node along combinational paths (registers reset to 0)."""
-    nodes = g.nodes
+def arrival_times(g, delays=unit_delays, *, cut_pipes: bool = True) -> dict:
+    """Arrival time of every node along combinational paths (registers reset to 0).
+
+    With ``cut_pipes=False`` pipeline registers are ignored (the paths :func:`pipeline`
+    starts from: no pipelining target at or above their longest inserts a register).
+    """
+    nodes = g._node
+    nd = node_delays(g, delays)
     preds = {v: [] for v in nodes}
     succs = {v: [] for v in nodes}
-    for u, v, e in g.edges(data=True):
-        if not (e["z"] > 0 or e["pipe"] > 0) and nodes[u]["kind"] != "acc":
-            preds[v].append(u)
-            succs[u].append(v)
+    for u, nbrs in g._succ.items():
+        if nodes[u]["kind"] == "acc":
+            continue
+        for v, kd in nbrs.items():
+            for e in kd.values():
+                if not (e["z"] > 0 or (cut_pipes and e["pipe"] > 0)):
+                    preds[v].append(u)
+                    succs[u].append(v)
     # Kahn's order over the combinational edges (a max-plus sum does not depend on it)
     indeg = {v: len(p) for v, p in preds.items()}
     ready = [v for v, k in indeg.items() if k == 0]
     arr = {}
     while ready:
         v = ready.pop()
-        arr[v] = max((arr[u] for u in preds[v]), default=0.0) + node_delay(g, v, delays)
+        arr[v] = max((arr[u] for u in preds[v]), default=0.0) + nd[v]
         for w in succs[v]:
             indeg[w] -= 1
             if indeg[w] == 0:
@@ -105,14 +130,15 @@ def critical_path(g, delays=unit_delays) -> float:
 def stages(g) -> dict:
     """Pipeline stage of every node (pipe registers from the input)."""
     st = {}
+    pred, nodes = g._pred, g._node
     for v in _topo_all(g):
-        preds = [(u, e) for u, _, e in g.in_edges(v, data=True)]
+        preds = pred[v]
         if not preds:
             st[v] = 0
             continue
-        vals = {st[u] + e["pipe"] for u, e in preds if u in st}
-        st[v] = max(vals) if vals else 0
-        if g.nodes[v]["kind"] == "acc":
+        st[v] = max((st[u] + e["pipe"] for u, kd in preds.items() if u in st for e in kd.values()),
+                    default=0)
+        if nodes[v]["kind"] == "acc":
             # a time-shared accumulator: steps 0..K-1 run in the K cycles after
             # the strobe's capture edge; the full sum is visible K+1 cycles on
             st[v] += int(g.nodes[v]["steps"]) + 1
@@ -145,20 +171,25 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
     With ``register_output`` the output gets a register of its own (one more
     cycle of latency, and a clean registered ``out_data``).
     """
+    nd = node_delays(g, delays)
+    order = condensed_order(g)
     h = copy_graph(g)
-    for _, _, e in h.edges(data=True):
-        e["pipe"] = 0
+    nodes, pred = h._node, h._pred
+    for nbrs in h._succ.values():
+        for kd in nbrs.values():
+            for e in kd.values():
+                e["pipe"] = 0
     stage, arr = {}, {}
-    for members in condensed_order(h):
-        ext = [(u, v, e) for v in members for u, _, e in h.in_edges(v, data=True) if u not in members]
-        s0 = max((stage[u] for u, _, _ in ext), default=0)
-        if len(members) == 1 and not h.has_edge(members[0], members[0]):
+    for members in order:
+        if len(members) == 1 and members[0] not in pred[members[0]]:
             v = members[0]
-            t = node_delay(h, v, delays)
-            a_in = max((arr[u] for u, _, e in ext if stage[u] == s0 and e["z"] == 0), default=0.0)
-            kind = h.nodes[v]["kind"]
+            ext = [(u, e) for u, kd in pred[v].items() for e in kd.values()]
+            s0 = max((stage[u] for u, _ in ext), default=0)
+            t = nd[v]
+            a_in = max((arr[u] for u, e in ext if stage[u] == s0 and e["z"] == 0), default=0.0)
+            kind = nodes[v]["kind"]
             if kind == "acc":
-                s0 += int(h.nodes[v]["steps"]) + 1
+                s0 += int(nodes[v]["steps"]) + 1
                 stage[v], arr[v] = s0, 0.0
                 continue
             if a_in + t > period and t > 0 and a_in > 0 and kind != "output":
@@ -170,6 +201,8 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
             stage[v], arr[v] = s0, a_in + t
         else:
             # a loop: one stage; arrival inside along its zero-delay edges
+            ext = [(u, v, e) for v in members for u, _, e in h.in_edges(v, data=True) if u not in members]
+            s0 = max((stage[u] for u, _, _ in ext), default=0)
             sub = nx.DiGraph()
             sub.add_nodes_from(members)
             sub.add_edges_from((u, v) for u, v, e in h.edges(data=True)
@@ -179,7 +212,7 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
                 a = max((arr[u] for u, _, e in h.in_edges(v, data=True)
                          if u not in members and stage[u] == s0 and e["z"] == 0), default=0.0)
                 a = max([a] + [ain[u] for u in sub.predecessors(v)])
-                ain[v] = a + node_delay(h, v, delays)
+                ain[v] = a + nd[v]
             if max(ain.values()) > period and any(
                     stage[u] == s0 and arr[u] > 0 for u, _, e in ext if e["z"] == 0):
                 s0 += 1
@@ -187,13 +220,22 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
                                   default=0.0) for v, a in ain.items()}
             for v in members:
                 stage[v], arr[v] = s0, ain[v]
-    for u, v, e in h.edges(data=True):
-        base = stage[u]
-        if h.nodes[v]["kind"] == "acc":
-            base += int(h.nodes[v]["steps"]) + 1
-        e["pipe"] = stage[v] - base if stage[v] >= base else 0
-        if stage[v] < base:
-            raise ValueError(f"stage order broken on {u}->{v}")
+    for u, nbrs in h._succ.items():
+        su = stage[u]
+        for v, kd in nbrs.items():
+            base = su
+            if nodes[v]["kind"] == "acc":
+                base += int(nodes[v]["steps"]) + 1
+            if stage[v] < base:
+                raise ValueError(f"stage order broken on {u}->{v}")
+            for e in kd.values():
+                e["pipe"] = stage[v] - base
+    # same nodes, operands, formats and fan-out: the same delays, order and zero low bits
+    h.graph.update((k, v) for k, v in g.graph.items() if k.startswith("_"))
+    seal(h)
+    h.graph["_delays"] = (delays, nd)
+    h.graph["_order"] = (len(h._node), order)
+    h.graph.pop("_edges", None)
     h.graph["pipeline_period"] = period
     return h
 
