@@ -132,6 +132,8 @@ class Delays:
     mult_verified: bool = False             # the multiplier figures were timed by P&R
     notes: str = ""
     fanout_ns_per_doubling: float = 0.0     # extra net delay per doubling of a driver's fan-out
+    # the node kinds whose operand nets pay it (None: every kind)
+    fanout_load_kinds: Optional[tuple] = None
 
     def adder_ns(self, width: int) -> float:
         """Register-to-register delay of a ``width``-bit carry-chain adder."""
@@ -433,10 +435,15 @@ CALIBRATED = {
         "lut_ns": 0.235, "route_ns": 1.218,
         "mult_reg_ns": 6.997, "mult_comb_ns": 7.073, "mult_add_ns": 9.292,
         "mult_verified": True,
-        # [C: calibration run 2026-12-02, 25 example designs placed and routed through the
-        # serial shell: 0.6 ns per doubling of a net's fan-out brings 22 of 25 within 25 %
-        # (0.4: 19, 0.8: 20, 1.0: 21; 0: median error 27 %)]
-        "fanout_ns_per_doubling": 0.6,
+        # [C: calibration runs of 2026-12-02, 33 example designs placed and routed through
+        # the serial shell. A net's fan-out slows it where its loads are hard multipliers
+        # or operand multiplexers: 0.8 ns per doubling there brings 29 of 33 within 25 %
+        # (median error 6.6 %). Charged on every load, the best coefficient (0.6) gives 28
+        # and makes every shift-add filter pessimistic: nextpnr routes a fundamental's net
+        # to 8 or 16 fabric adders in about 1.1 ns, as a single-load net (servo_diff
+        # shift-add, 97 MHz placed; 53 MHz estimated with the term on every load)]
+        "fanout_ns_per_doubling": 0.8,
+        "fanout_load_kinds": ("mul", "mux"),
         "notes": "mult: 18x18 MULT18X18D between fabric FFs (Yosys absorbs no register on ECP5); "
                  "mult_add: 18x18 product + 40-bit add, registered after the add",
         "source": "[C: nextpnr-ecp5 0.11.1 on LFE5U-85F (--85k), probes AdderProbe 8..48, "
@@ -473,7 +480,8 @@ def _with_delays(p: DeviceProfile) -> DeviceProfile:
                lut_ns=cal["lut_ns"], route_ns=cal["route_ns"], verified=True,
                source=cal["source"], mult_comb_ns=cal.get("mult_comb_ns"),
                mult_verified=bool(cal.get("mult_verified")), notes=cal.get("notes", ""),
-               fanout_ns_per_doubling=cal.get("fanout_ns_per_doubling", 0.0))
+               fanout_ns_per_doubling=cal.get("fanout_ns_per_doubling", 0.0),
+               fanout_load_kinds=cal.get("fanout_load_kinds"))
     return replace(p, delays=d)
 
 

@@ -43,8 +43,11 @@ def delay_function(device: str):
         return max(1, math.ceil(math.log(inputs, per)))
 
     def fanout(g, v):
-        # a net driving many loads is slower than the probes' single-load nets
+        # a net driving many loads is slower than the probes' single-load nets (where the
+        # loads are spread out: the profile names the kinds of node that pay it)
         if not d.fanout_ns_per_doubling:
+            return 0.0
+        if d.fanout_load_kinds is not None and g.nodes[v]["kind"] not in d.fanout_load_kinds:
             return 0.0
         worst = max((len(g._succ[u]) for u in g._pred[v]), default=1)
         return d.fanout_ns_per_doubling * math.log2(worst) if worst > 1 else 0.0

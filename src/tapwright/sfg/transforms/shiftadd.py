@@ -86,6 +86,8 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import lru_cache
+
 
 import numpy as np
 
@@ -269,14 +271,18 @@ def _a_ops(u: int, v: int, limit: int, right_shift: bool):
             yield ad >> r, ((0, 1, 0, -1, r) if d > 0 else (0, -1, 0, 1, r))
 
 
+@lru_cache(maxsize=4)
 def _naf_weights(limit: int) -> np.ndarray:
-    """CSD weight of every integer 0..limit (vectorised non-adjacent form: popcount(n>>1 ^ 3n>>1))."""
+    """CSD weight of every integer 0..limit (vectorised non-adjacent form: popcount(n>>1 ^ 3n>>1)).
+
+    A table of the integers alone, kept (read only) for the next search of the same size."""
     n = np.arange(limit + 1, dtype=np.int64)
     c = (n >> 1) ^ (n + (n >> 1))
     w = np.zeros(limit + 1, dtype=np.int64)
     while c.any():
         w += c & 1
         c >>= 1
+    w.flags.writeable = False
     return w
 
 
