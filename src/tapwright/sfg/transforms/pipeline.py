@@ -8,7 +8,9 @@ Two kinds of register live on edges:
   valid bit; a node's *stage* is the number of pipeline registers between the
   input and it, and the output's stage is the latency in cycles.
 
-A combinational path is a path whose edges carry neither. Every node has a
+A combinational path is a path whose edges carry neither and do not end at a
+``mux``: a time-shared stage's multiplexers read the captured line, registers
+(``rtl/lower.py``). Every node has a
 delay ``t`` (ns) from the device's delay table; the critical path is the
 longest combinational path.
 
@@ -102,6 +104,8 @@ def arrival_times(g, delays=unit_delays, *, cut_pipes: bool = True) -> dict:
         if nodes[u]["kind"] == "acc":
             continue
         for v, kd in nbrs.items():
+            if nodes[v]["kind"] == "mux":
+                continue   # a multiplexer reads the captured line: registers (rtl/lower.py)
             for e in kd.values():
                 if not (e["z"] > 0 or (cut_pipes and e["pipe"] > 0)):
                     preds[v].append(u)
@@ -188,6 +192,8 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
             t = nd[v]
             a_in = max((arr[u] for u, e in ext if stage[u] == s0 and e["z"] == 0), default=0.0)
             kind = nodes[v]["kind"]
+            if kind == "mux":
+                a_in = 0.0   # its operands are the captured line's registers
             if kind == "acc":
                 s0 += int(nodes[v]["steps"]) + 1
                 stage[v], arr[v] = s0, 0.0
