@@ -247,7 +247,11 @@ def estimate(g, device: str) -> Estimate:
                 if v in tree and (scope == "any" or all(u in hard or u in under for u in g.predecessors(v))):
                     under.add(v)
         for v in under:
-            if not any(w in under for w in g.successors(v)):
+            # a tree ends where its sum is registered: Yosys merges only adders joined
+            # without a register (calibration run: adc_halfband halfband+polyphase/p1.5 on
+            # ECP5, every tree adder pipelined, 264 CCU2C and 6 LUT4)
+            if not any(w in under and any(e["pipe"] == 0 and e["z"] == 0 for e in kd.values())
+                       for w, kd in g._succ[v].items()):
                 roots.add(v)
     for width, role, v in m.adders:
         if v in acc_in_dsp or v in in_block:
