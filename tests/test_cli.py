@@ -82,6 +82,28 @@ def test_impossible_budget_exits_1_with_closest(tmp_path, capsys):
     assert "no candidate fits" in out and "closest:" in out and "over by" in out
 
 
+def test_designs_larger_than_the_family_are_not_recommended(tmp_path):
+    # Outside reference: the iCE40UP5K, the biggest iCE40 UltraPlus part, has 5280 logic
+    # cells (LUT4 + FF each) and 8 DSP blocks (nextpnr-ice40 --up5k utilization report;
+    # FPGA-DS-02008 Table 1.1). A 146-tap decimating FIR with no budget beyond its DSP
+    # blocks: the shift-add forms need more cells than that, so they must not be
+    # recommended whatever their cost, and the reason says why.
+    p = write_spec(tmp_path, device="ice40", clock=48e6, budget="dsp = 8", name="strain_dec8")
+    text = p.read_text().replace("sample_rate = 10e6", 'sample_rate = 1e6\ndecimation = 8')
+    text = text.replace("edges = [0, 1e6]", "edges = [0, 40e3]").replace("ripple_db = 0.5", "ripple_db = 0.1")
+    text = text.replace("edges = [2.5e6, 5e6]", "edges = [62.5e3, 500e3]").replace("atten_db = 45", "atten_db = 70")
+    text = text.replace("bits = 12\nfrac = 11", "bits = 16\nfrac = 15")
+    p.write_text(text)
+    res = plan(parse_spec_text(text))
+    # an iCE40 logic cell holds a LUT4, its carry and a flip-flop: carry cells take no cell
+    big = [c for c in res.exploration.candidates
+           if c.estimate.lut > 5280 or c.estimate.ff > 5280 or c.estimate.dsp > 8]
+    assert big, "the example should have candidates larger than the part"
+    for c in big:
+        assert not c.feasible and "larger than iCE40UP5K" in c.why, (c.label, c.why)
+    assert res.design.fixed.stages[0].ntaps > 100 and res.exploration.recommended not in big
+
+
 def test_bad_device_exits_2(tmp_path, capsys):
     p = write_spec(tmp_path, device="xc9000")
     assert main(["plan", str(p)]) == 2

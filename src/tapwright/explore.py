@@ -7,7 +7,10 @@ For a quantized design the explorer builds each candidate's signal-flow graph
 - throughput: the structure's ``input_interval`` must not exceed the clock
   cycles available per input sample, floor(clock / sample_rate);
 - clock: the estimated reachable clock must reach the spec's clock;
-- budget: dsp, lut, ff and latency within ``[target.budget]``.
+- budget: dsp, lut, ff and latency within ``[target.budget]``;
+- size: within the biggest part the device profile lists for the family (DSP
+  blocks, LUTs, flip-flops; a design no listed part holds is never recommended,
+  whatever the budget says).
 
 Ranking. Among feasible candidates the recommendation is the cheapest by one
 documented weighting: each resource as a fraction of the capacity of the
@@ -31,7 +34,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from .cost.devices import get_profile
+from .cost.devices import get_profile, part_use
 from .cost.estimate import Estimate, estimate
 from .cost.timing import delay_function, target_period
 from .fixed.stages import FixedDesign
@@ -268,6 +271,16 @@ def _check(c: Candidate, spec):
         if lim is not None and used[k] > lim:
             reasons.append(f"{k} {used[k]} > budget {lim}")
             excess[k] = used[k] - lim
+    prof = get_profile(spec.device)
+    if prof.parts:
+        # the family's largest listed part bounds every design, budget or not
+        big = prof.parts[-1]
+        use = part_use(prof, big, e)
+        over = [k for k in ("dsp", "lut", "ff") if use[k] > 1.0]
+        if over:
+            reasons.append(f"larger than {big.name}, the biggest listed {spec.device} part "
+                           f"({', '.join(f'{k} {use[k]:.0%}' for k in over)})")
+            excess["part"] = round(max(use.values()) - 1.0, 3)
     c.feasible = not reasons
     c.why = "; ".join(reasons)
     c.excess = excess

@@ -186,11 +186,11 @@ def part_fit(device: str, est) -> str:
     """'fits in part X at N percent' for the smallest listed part of the family that holds ``est``."""
     from .cost.devices import get_profile
 
+    from .cost.devices import part_use
+
     prof = get_profile(device)
     for part in prof.parts:
-        use = {"dsp": est.dsp / part.dsp if part.dsp else (0 if est.dsp == 0 else 9),
-               "lut": (est.lut + (est.carry if prof.carry_bits_per_cell == 2 else 0)) / part.lut,
-               "ff": est.ff / part.ff}
+        use = part_use(prof, part, est)
         if max(use.values()) <= 1.0:
             return (f"fits in {part.name} at {use['dsp']:.0%} of its DSP blocks, {use['lut']:.0%} of its "
                     f"LUTs, {use['ff']:.0%} of its flip-flops (estimate; part sizes: {part.source})")

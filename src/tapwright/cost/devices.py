@@ -470,6 +470,14 @@ CALIBRATED = {
 DEVICES = ("generic", "xc7", "ecp5", "ice40")
 
 
+def part_use(prof: DeviceProfile, part, est) -> dict:
+    """Fraction of ``part``'s DSP blocks, LUTs and flip-flops an estimate takes (on families
+    whose carry cell takes a LUT's place, the carry cells count as LUTs)."""
+    return {"dsp": est.dsp / part.dsp if part.dsp else (0 if est.dsp == 0 else 9),
+            "lut": (est.lut + (est.carry if prof.carry_bits_per_cell == 2 else 0)) / part.lut,
+            "ff": est.ff / part.ff}
+
+
 def _with_delays(p: DeviceProfile) -> DeviceProfile:
     cal = CALIBRATED.get(p.name)
     if not cal:
