@@ -317,8 +317,7 @@ def _rank(spec, sources, lb_fixed, *, name=None) -> Exploration:
         g = realize(fixed, r, name=name or spec.name, delays=delays)
         # the same structure with the same pipeline registers is the same candidate: skip
         # its estimate (the signature check below would drop it anyway)
-        shape = (id(fixed), r.structure, r.transforms, r.stage_transforms, r.fold, r.stage_folds,
-                 r.sos_form, tuple(e["pipe"] for _, _, e in edge_list(g)))
+        shape = skey + (tuple(e["pipe"] for _, _, e in edge_list(g)),)
         if shape in shapes:
             continue
         shapes.add(shape)

@@ -184,9 +184,7 @@ def render_plan(result: PlanResult) -> str:
 
 def part_fit(device: str, est) -> str:
     """'fits in part X at N percent' for the smallest listed part of the family that holds ``est``."""
-    from .cost.devices import get_profile
-
-    from .cost.devices import part_use
+    from .cost.devices import get_profile, part_use
 
     prof = get_profile(device)
     for part in prof.parts:

@@ -282,15 +282,25 @@ def check(g) -> None:
     eval_order(g)
 
 
-def edge_list(g) -> list:
-    """Every edge as ``(u, v, data)``, in networkx's order; a sealed graph keeps the list."""
-    c = g.graph.get("_edges")
+def kept(g, key: str, compute):
+    """``compute(g)``, kept in the graph's ``key`` entry when ``g`` is sealed (:func:`seal`)
+    and taken from there while the node count matches."""
+    c = g.graph.get(key)
     if c is not None and c[0] == len(g._node):
         return c[1]
-    out = [(u, v, e) for u, nbrs in g._succ.items() for v, kd in nbrs.items() for e in kd.values()]
+    val = compute(g)
     if g.graph.get("_sealed"):
-        g.graph["_edges"] = (len(g._node), out)
-    return out
+        g.graph[key] = (len(g._node), val)
+    return val
+
+
+def edge_list(g) -> list:
+    """Every edge as ``(u, v, data)``, in networkx's order; a sealed graph keeps the list."""
+    return kept(g, "_edges", _edge_list)
+
+
+def _edge_list(g) -> list:
+    return [(u, v, e) for u, nbrs in g._succ.items() for v, kd in nbrs.items() for e in kd.values()]
 
 
 def seal(g) -> nx.MultiDiGraph:
@@ -331,13 +341,7 @@ def condensed_order(g) -> list:
     graph with loops pays for networkx's condensation. A sealed graph keeps it in its
     ``_order`` entry (see :func:`seal`; the callers hold the list read-only).
     """
-    c = g.graph.get("_order")
-    if c is not None and c[0] == len(g._node):
-        return c[1]
-    comps = _condensed_order(g)
-    if g.graph.get("_sealed"):
-        g.graph["_order"] = (len(g._node), comps)
-    return comps
+    return kept(g, "_order", _condensed_order)
 
 
 def _condensed_order(g) -> list:

@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 
 from ..fixed.formats import bits_for_range
-from .graph import edge_list, operands
+from .graph import edge_list, kept, operands
 from .transforms.pipeline import critical_path, latency, unit_delays
 
 
@@ -101,13 +101,7 @@ def zero_lsbs(g) -> dict:
     register of such a word costs ``bits - zero_lsbs`` flip-flops (calibration run: the
     ECP5 halfband centre tap 1/2 carried K+1 cycles, 16 zero bits per stage dropped).
     """
-    c = g.graph.get("_tz")
-    if c is not None and c[0] == len(g._node):
-        return c[1]
-    tz = _zero_lsbs(g)
-    if g.graph.get("_sealed"):    # a finished graph keeps it (sfg.graph.seal)
-        g.graph["_tz"] = (len(g._node), tz)
-    return tz
+    return kept(g, "_tz", _zero_lsbs)
 
 
 def _zero_lsbs(g) -> dict:

@@ -128,16 +128,25 @@ _CACHE_MAX = 48
 def _structural(design, recipe, name):
     """The graph before pipelining, cached per (design, structure, folding): the explorer asks
     for the same structure at several pipelining targets."""
-    key = (id(design), name, recipe.structure, recipe.transforms, recipe.stage_transforms, recipe.fold,
-           recipe.stage_folds, recipe.sos_form)
-    hit = _CACHE.get(key)
+    def make():
+        g = seal(_realize_structure(design, recipe, name))
+        zero_lsbs(g)   # kept in the sealed graph; pipelining hands it on to every target
+        return g
+    return _memo(_CACHE, _CACHE_MAX, design, (name, recipe.structure, recipe.transforms,
+                 recipe.stage_transforms, recipe.fold, recipe.stage_folds, recipe.sos_form), make)
+
+
+def _memo(store: dict, limit: int, design, key: tuple, make):
+    """``make()``, kept in ``store`` per (design, key) (at most ``limit`` entries, oldest
+    dropped first). The entry holds the design itself, so its id cannot be reused."""
+    key = (id(design),) + key
+    hit = store.get(key)
     if hit is not None and hit[0] is design:
         return hit[1]
-    g = seal(_realize_structure(design, recipe, name))
-    zero_lsbs(g)   # kept in the sealed graph; pipelining hands it on to every target
-    if len(_CACHE) >= _CACHE_MAX:
-        _CACHE.pop(next(iter(_CACHE)))
-    _CACHE[key] = (design, g)
+    g = make()
+    if len(store) >= limit:
+        store.pop(next(iter(store)))
+    store[key] = (design, g)
     return g
 
 
@@ -188,15 +197,8 @@ _BASE: dict = {}
 def _base(design, name, fir_adder, sos_form):
     """The built (untransformed) graph, cached: every transform copies its input, so the
     cached graph is only ever read."""
-    key = (id(design), name, fir_adder, sos_form)
-    hit = _BASE.get(key)
-    if hit is not None and hit[0] is design:
-        return hit[1]
-    g = _build.build(design, name=name, fir_adder=fir_adder, sos_form=sos_form)
-    if len(_BASE) >= 8:
-        _BASE.pop(next(iter(_BASE)))
-    _BASE[key] = (design, g)
-    return g
+    return _memo(_BASE, 8, design, (name, fir_adder, sos_form),
+                 lambda: _build.build(design, name=name, fir_adder=fir_adder, sos_form=sos_form))
 
 
 _PREFIX: dict = {}
@@ -208,15 +210,9 @@ def _transformed(design, name, fir_adder, sos_form, transforms):
     symmetric, then shift-add), and every transform copies its input."""
     if not transforms:
         return _base(design, name, fir_adder, sos_form)
-    key = (id(design), name, fir_adder, sos_form, transforms)
-    hit = _PREFIX.get(key)
-    if hit is not None and hit[0] is design:
-        return hit[1]
-    g = _TRANSFORM[transforms[-1]](_transformed(design, name, fir_adder, sos_form, transforms[:-1]))
-    if len(_PREFIX) >= 24:
-        _PREFIX.pop(next(iter(_PREFIX)))
-    _PREFIX[key] = (design, g)
-    return g
+    return _memo(_PREFIX, 24, design, (name, fir_adder, sos_form, transforms),
+                 lambda: _TRANSFORM[transforms[-1]](_transformed(design, name, fir_adder, sos_form,
+                                                                 transforms[:-1])))
 
 
 def _realize_structure(design: FixedDesign, recipe: Recipe, name: str):

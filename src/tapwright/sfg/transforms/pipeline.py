@@ -40,7 +40,7 @@ import math
 
 import networkx as nx
 
-from ..graph import condensed_order, copy_graph, eval_order, seal
+from ..graph import condensed_order, copy_graph, edge_list, eval_order, seal
 
 
 def node_delay(g, v, delays) -> float:
@@ -100,16 +100,14 @@ def arrival_times(g, delays=unit_delays, *, cut_pipes: bool = True) -> dict:
     nd = node_delays(g, delays)
     preds = {v: [] for v in nodes}
     succs = {v: [] for v in nodes}
-    for u, nbrs in g._succ.items():
-        if nodes[u]["kind"] == "acc":
+    for u, v, e in edge_list(g):
+        # an accumulator's output and a multiplexer's operands (the captured line, rtl/lower.py)
+        # are registers
+        if nodes[u]["kind"] == "acc" or nodes[v]["kind"] == "mux":
             continue
-        for v, kd in nbrs.items():
-            if nodes[v]["kind"] == "mux":
-                continue   # a multiplexer reads the captured line: registers (rtl/lower.py)
-            for e in kd.values():
-                if not (e["z"] > 0 or (cut_pipes and e["pipe"] > 0)):
-                    preds[v].append(u)
-                    succs[u].append(v)
+        if not (e["z"] > 0 or (cut_pipes and e["pipe"] > 0)):
+            preds[v].append(u)
+            succs[u].append(v)
     # Kahn's order over the combinational edges (a max-plus sum does not depend on it)
     indeg = {v: len(p) for v, p in preds.items()}
     ready = [v for v, k in indeg.items() if k == 0]
@@ -179,10 +177,9 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
     order = condensed_order(g)
     h = copy_graph(g)
     nodes, pred = h._node, h._pred
-    for nbrs in h._succ.values():
-        for kd in nbrs.values():
-            for e in kd.values():
-                e["pipe"] = 0
+    edges = edge_list(h)
+    for _, _, e in edges:
+        e["pipe"] = 0
     stage, arr = {}, {}
     for members in order:
         if len(members) == 1 and members[0] not in pred[members[0]]:
@@ -226,22 +223,19 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
                                   default=0.0) for v, a in ain.items()}
             for v in members:
                 stage[v], arr[v] = s0, ain[v]
-    for u, nbrs in h._succ.items():
-        su = stage[u]
-        for v, kd in nbrs.items():
-            base = su
-            if nodes[v]["kind"] == "acc":
-                base += int(nodes[v]["steps"]) + 1
-            if stage[v] < base:
-                raise ValueError(f"stage order broken on {u}->{v}")
-            for e in kd.values():
-                e["pipe"] = stage[v] - base
+    for u, v, e in edges:
+        base = stage[u]
+        if nodes[v]["kind"] == "acc":
+            base += int(nodes[v]["steps"]) + 1
+        if stage[v] < base:
+            raise ValueError(f"stage order broken on {u}->{v}")
+        e["pipe"] = stage[v] - base
     # same nodes, operands, formats and fan-out: the same delays, order and zero low bits
-    h.graph.update((k, v) for k, v in g.graph.items() if k.startswith("_"))
     seal(h)
-    h.graph["_delays"] = (delays, nd)
-    h.graph["_order"] = (len(h._node), order)
-    h.graph.pop("_edges", None)
+    n = len(h._node)
+    h.graph.update(_delays=(delays, nd), _order=(n, order), _edges=(n, edges))
+    if "_tz" in g.graph:
+        h.graph["_tz"] = g.graph["_tz"]
     h.graph["pipeline_period"] = period
     return h
 

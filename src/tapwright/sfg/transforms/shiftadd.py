@@ -546,37 +546,39 @@ class _Builder:
 
     def _csd_tree(self, t):
         """Balanced tree of ``t``'s CSD digits (depth ceil(log2 S(t))); reuses ready nodes shallow enough."""
-        digs = sorted(csd(t), key=lambda d: d[1])
+        _csd_tree(self.g, self.R, t, self._enter)
 
-        def build(lo, hi):
-            # digits lo..hi-1: returns (index, sign, low_shift) with sum = sign * values[index] * 2**low_shift
-            if hi - lo == 1:
-                s, pos = digs[lo]
-                return 0, s, pos
-            mid = (lo + hi) // 2
-            ia, sa, pa = build(lo, mid)   # lower digits
-            ib, sb, pb = build(mid, hi)   # upper digits
-            k = pb - pa
-            g = self.g
-            val = sb * g.values[ib] * (1 << k) + sa * g.values[ia]
-            sign = 1 if val > 0 else -1
-            aval = abs(val)
-            need = math.ceil(math.log2(hi - lo))
-            i = self.R.get(aval)
-            if i is None or g.depths[i] > need:
-                constr = (ib, k, sb * sign, ia, 0, sa * sign, 0)
-                d = max(g.depths[ia], g.depths[ib]) + 1
-                if i is None:
-                    i = self.add(aval, constr, d)
-                else:  # a deeper node of the same value exists: add a shallow duplicate
-                    g.fundamentals.append(constr)
-                    g.values.append(aval)
-                    g.depths.append(d)
-                    i = len(g.values) - 1
-                    self._enter(aval, i)
-            return i, sign, pa
 
-        build(0, len(digs))
+def _csd_tree(g: AdderGraph, ready: dict, t: int, enter) -> None:
+    """Add to ``g`` a balanced tree of ``t``'s CSD digits (depth ceil(log2 S(t))).
+
+    ``ready`` maps values to node indices; a ready node no deeper than its subtree needs is
+    reused, else a new (shallower) node is made and ``enter(value, index)`` called.
+    """
+    digs = sorted(csd(t), key=lambda d: d[1])
+
+    def build(lo, hi):
+        # digits lo..hi-1: returns (index, sign, low_shift) with sum = sign * values[index] * 2**low_shift
+        if hi - lo == 1:
+            s, pos = digs[lo]
+            return 0, s, pos
+        mid = (lo + hi) // 2
+        ia, sa, pa = build(lo, mid)   # lower digits
+        ib, sb, pb = build(mid, hi)   # upper digits
+        k = pb - pa
+        val = sb * g.values[ib] * (1 << k) + sa * g.values[ia]
+        sign = 1 if val > 0 else -1
+        aval = abs(val)
+        i = ready.get(aval)
+        if i is None or g.depths[i] > math.ceil(math.log2(hi - lo)):
+            g.fundamentals.append((ib, k, sb * sign, ia, 0, sa * sign, 0))
+            g.values.append(aval)
+            g.depths.append(max(g.depths[ia], g.depths[ib]) + 1)
+            i = len(g.values) - 1
+            enter(aval, i)
+        return i, sign, pa
+
+    build(0, len(digs))
 
 
 def _outputs(g: AdderGraph, consts):
@@ -658,32 +660,7 @@ def _csd_graph(targets) -> AdderGraph:
     g = AdderGraph()
     ready = {1: 0}
     for t in targets:
-        digs = sorted(csd(t), key=lambda d: d[1])
-
-        def build(lo, hi):
-            # digits lo..hi-1 as (index, sign, low shift): sum = sign * values[index] * 2**shift
-            if hi - lo == 1:
-                sgn, pos = digs[lo]
-                return 0, sgn, pos
-            mid = (lo + hi) // 2
-            ia, sa, pa = build(lo, mid)
-            ib, sb, pb = build(mid, hi)
-            k = pb - pa
-            val = sb * g.values[ib] * (1 << k) + sa * g.values[ia]
-            sign = 1 if val > 0 else -1
-            aval = abs(val)
-            depth = max(g.depths[ia], g.depths[ib]) + 1
-            i = ready.get(aval)
-            if i is None or g.depths[i] > depth:
-                g.fundamentals.append((ib, k, sb * sign, ia, 0, sa * sign, 0))
-                g.values.append(aval)
-                g.depths.append(depth)
-                i = len(g.values) - 1
-                if aval not in ready:
-                    ready[aval] = i
-            return i, sign, pa
-
-        build(0, len(digs))
+        _csd_tree(g, ready, t, ready.__setitem__)
     return g
 
 
