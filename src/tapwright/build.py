@@ -212,8 +212,9 @@ def _choose(result, structure):
     if structure is None:
         if ex.recommended is None:
             c = ex.closest
-            why = f"; closest: {c.label} ({c.why})" if c is not None else ""
-            raise JobFailed(f"no candidate structure meets the budget{why}")
+            why = (f"; closest: {c.label} ({c.why}); to build it anyway: --structure {c.label}"
+                   if c is not None else "")
+            raise JobFailed(f"no candidate structure meets the clock, throughput, budget and part size{why}")
         return ex.recommended
     picks = [c for c in ex.candidates if c.label == structure] or \
         [c for c in ex.candidates if c.structure == structure]
