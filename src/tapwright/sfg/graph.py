@@ -87,7 +87,7 @@ def add_node(g: nx.MultiDiGraph, kind: str, name: str | None = None, **attrs) ->
 
 def connect(g, u, v, *, port: int | None = None, z: int = 0, pipe: int = 0, sign: int = 1, shift: int = 0):
     if port is None:
-        port = g.in_degree(v)
+        port = sum(map(len, g._pred[v].values()))   # in-degree (hot path: no view)
     g.add_edge(u, v, port=port, z=int(z), pipe=int(pipe), sign=int(sign), shift=int(shift))
 
 
