@@ -186,7 +186,7 @@ def test_estimates_against_the_recorded_synthesis(spec_name):
             if r["spec"] == spec_name and r["device"] == "ecp5" and not r.get("error")]
     assert rows
     res = plan(dataclasses.replace(load_spec(root / "specs" / f"{spec_name}.toml"), device="ecp5"))
-    cands = {c.label: c for c in res.exploration.candidates}
+    cands = res.exploration.by_label()
     checked = 0
     for r in rows:
         c = cands.get(r["candidate"])

@@ -269,3 +269,43 @@ def test_plan_does_not_depend_on_the_hash_seed(tmp_path):
         assert r.returncode == 0, r.stderr
         outs.append(r.stdout)
     assert outs[0] == outs[1]
+
+
+def test_recipes_giving_the_same_graph_are_listed_once(tmp_path, capsys):
+    """A halfband folded with and without the halfband transform is the same hardware (the
+    fold drops the zero taps either way): one row, under the name that says more, and the
+    other name still builds it. Sameness is checked here by networkx's exact graph
+    isomorphism (VF2) on the realized graphs, not by the explorer's own fingerprint."""
+    import networkx as nx
+
+    from tapwright.build import build_design
+    from tapwright.sfg.recipe import realize
+
+    spec = Path(__file__).parent.parent / "specs" / "adc_halfband.toml"
+    res = plan(parse_spec_text(spec.read_text(), path=spec))
+    ex = res.exploration
+    labels = [c.label for c in ex.candidates]
+    assert len(labels) == len(set(labels))
+    twin = next(c for c in ex.candidates if c.same_as)
+    assert "halfband" in twin.label and all("halfband" not in a for a in twin.same_as)
+    alias = twin.same_as[0]
+    assert alias not in labels and ex.by_label()[alias] is twin
+
+    attrs = ("kind", "fmt", "coeff", "table", "select", "zero_port", "steps", "rounding", "overflow")
+    nm = lambda a, b: all(a.get(k) == b.get(k) for k in attrs)                       # noqa: E731
+    em = lambda a, b: sorted((e["z"], e["pipe"], e["sign"], e["shift"], e["port"]) for e in a.values()) \
+        == sorted((e["z"], e["pipe"], e["sign"], e["shift"], e["port"]) for e in b.values())  # noqa: E731
+    from tapwright.sfg.recipe import Recipe
+    other = Recipe.from_dict(dict(twin.recipe.as_dict(), transforms=[
+        t for t in twin.recipe.transforms if t != "halfband"]))
+    assert other.label == alias
+    g1 = realize(res.design.fixed, twin.recipe, name="a")
+    g2 = realize(res.design.fixed, other, name="a")
+    assert nx.is_isomorphic(g1, g2, node_match=nm, edge_match=em)
+
+    v1 = build_design(res, structure=twin.label, out=tmp_path / "a")
+    v2 = build_design(res, structure=alias, out=tmp_path / "b")
+    assert (v1 / "adc_halfband.v").read_text() == (v2 / "adc_halfband.v").read_text()
+    assert main(["plan", str(spec)]) == 0
+    out = capsys.readouterr().out
+    assert f"{alias} = {twin.label}" in out

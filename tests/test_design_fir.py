@@ -314,3 +314,15 @@ def test_halfband_taps_very_wide_transition(fp):
     d = fir.design_fir(spec)
     assert d.halfband and np.all(np.isfinite(d.taps))
     assert meets_independently(d.taps, spec)
+
+
+def test_shortfall_words_when_the_pass_band_error_reaches_the_gain():
+    """A response that is zero across the pass band has no ripple in dB: the message says
+    so in words instead of printing "inf dB" (the ripple formula 20 log10((1+e)/(1-e)) is
+    unbounded at e = 1: common practice)."""
+    spec = lowpass(0.1, 0.2, 0.1, 60)
+    freqs = np.linspace(0.0, 0.5, 501)
+    msg = fir.worst_shortfall(spec, freqs, np.zeros_like(freqs))
+    assert "inf" not in msg and "band 1" in msg and "0.1 dB ripple required" in msg
+    half = fir.worst_shortfall(spec, freqs, np.where(freqs <= 0.1, 0.5, 0.0))  # e = 0.5: finite
+    assert "ripple 9.542 dB against 0.1 dB required" in half   # 20 log10(1.5 / 0.5)

@@ -373,3 +373,24 @@ def test_interpreter_linear_forms_exact_at_every_width(cbits, in_bits):
     x[:3] = [d.in_fmt.hi, d.in_fmt.lo, d.in_fmt.hi]
     for r in (Recipe("direct"), Recipe("transposed", transforms=("transposed",))):
         assert np.array_equal(interpret.run(realize(d, r), x), reference.run(d, x))
+
+
+def test_fingerprint_ignores_names_and_sees_hardware():
+    """sfg.graph.fingerprint: the same graph under other node names hashes the same (the
+    explorer lists such candidates once); a changed coefficient or one more pipeline
+    register changes it (networkx.relabel_nodes builds the renamed copy)."""
+    import networkx as nx
+
+    from tapwright.sfg.graph import copy_graph, fingerprint
+
+    d = fir_design((3, -5, 7, 9, 7, -5, 3), 8, 10, 16)
+    g = realize(d, Recipe("timeshared", ("symmetric",), fold=2, period=3.0))
+    renamed = nx.relabel_nodes(g, {v: f"n_{i}" for i, v in enumerate(reversed(list(g)))})
+    assert fingerprint(renamed) == fingerprint(g)
+    other = realize(fir_design((3, -5, 7, 11, 7, -5, 3), 8, 10, 16),
+                    Recipe("timeshared", ("symmetric",), fold=2, period=3.0))
+    assert fingerprint(other) != fingerprint(g)
+    piped = copy_graph(g)
+    u, v, k = next(iter(piped.edges(keys=True)))
+    piped.edges[u, v, k]["pipe"] += 1
+    assert fingerprint(piped) != fingerprint(g)

@@ -216,10 +216,11 @@ def _choose(result, structure):
                    if c is not None else "")
             raise JobFailed(f"no candidate structure meets the clock, throughput, budget and part size{why}")
         return ex.recommended
-    picks = [c for c in ex.candidates if c.label == structure] or \
+    picks = [c for c in ex.candidates if c.label == structure or structure in c.same_as] or \
         [c for c in ex.candidates if c.structure == structure]
     if not picks:
-        allowed = sorted({c.structure for c in ex.candidates} | {c.label for c in ex.candidates})
+        allowed = sorted({c.structure for c in ex.candidates} | {c.label for c in ex.candidates}
+                         | {a for c in ex.candidates for a in c.same_as})
         raise _user_error(f"--structure {structure!r} is not a candidate for this spec "
                           f"(allowed: {', '.join(allowed)})")
     feas = [c for c in picks if c.feasible]

@@ -39,7 +39,7 @@ from .cost.estimate import Estimate, estimate
 from .cost.timing import delay_function, target_period
 from .fixed.stages import FixedDesign
 from .sfg.metrics import is_free_coeff
-from .sfg.graph import edge_list
+from .sfg.graph import edge_list, fingerprint
 from .sfg.recipe import Recipe, realize, structure_graph, unpipelined_critical_ns
 
 
@@ -54,6 +54,8 @@ class Candidate:
     excess: dict = field(default_factory=dict)
     fixed: FixedDesign | None = None
     chain: object = None      # the ChainDesign of a multistage candidate
+    #: labels of other recipes that give this very graph (not listed again)
+    same_as: list = field(default_factory=list)
 
     @property
     def structure(self) -> str:
@@ -77,7 +79,7 @@ class Candidate:
                 "estimate": self.estimate.as_dict(), "why": self.why,
                 "transforms": list(self.recipe.transforms), "fold": self.recipe.fold,
                 "pipeline_period": self.recipe.period, "cost": round(self.cost, 6), "pareto": self.pareto,
-                "recipe": self.recipe.as_dict()}
+                "recipe": self.recipe.as_dict(), "same_as": list(self.same_as)}
 
 
 @dataclass
@@ -92,6 +94,15 @@ class Exploration:
     @property
     def ok(self) -> bool:
         return self.recommended is not None
+
+    def by_label(self) -> dict:
+        """Candidates by label, each also under the labels of recipes that give the same
+        graph (``same_as``: listed once)."""
+        d = {}
+        for c in self.candidates:
+            for lab in (c.label, *c.same_as):
+                d.setdefault(lab, c)
+        return d
 
 
 def _fir_stages(fixed):
@@ -304,6 +315,7 @@ def _rank(spec, sources, lb_fixed, *, name=None) -> Exploration:
     seen = {}
     shapes = set()
     unpiped = set()
+    by_figures = {}   # estimate figures -> [(candidate, graph)]: equal figures, maybe the same graph
     delays = delay_function(spec.device)
     for fixed, r, chain in sources:
         if r.label in seen:
@@ -328,7 +340,24 @@ def _rank(spec, sources, lb_fixed, *, name=None) -> Exploration:
         if sig in seen.values():
             continue
         seen[r.label] = sig
+        # transforms that end in the same graph (a halfband's zero taps dropped by the
+        # halfband transform or by time-sharing) are one candidate under two names
+        figures = (id(fixed), est.dsp, est.lut, est.carry, est.ff, est.latency, est.fmax_mhz,
+                   est.input_interval)
+        twins = by_figures.setdefault(figures, [])
+        if twins:
+            fp = fingerprint(g)
+            twin = next((c0 for c0, g0 in twins if fingerprint(g0) == fp), None)
+            if twin is not None:
+                # listed under the name that says more (a halfband's name keeps "halfband")
+                if len(r.transforms) > len(twin.recipe.transforms):
+                    twin.same_as.append(twin.recipe.label)
+                    twin.recipe = r
+                else:
+                    twin.same_as.append(r.label)
+                continue
         c = Candidate(r, est, fixed=fixed, chain=chain)
+        twins.append((c, g))
         _check(c, spec)
         c.cost = _cost(est, spec)
         cands.append(c)

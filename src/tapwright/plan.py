@@ -154,6 +154,10 @@ def render_plan(result: PlanResult) -> str:
     lines += ["  " + ln for ln in _table(rows, hdr, ["<", "<", ">", ">", ">", ">", ">", ">", ">", "<", "<"])]
     lines.append("  (* recommended, P on the Pareto front of dsp / lut+carry / ff / latency; "
                  "ii = clock cycles per input sample; fmax in MHz, estimated)")
+    twins = [(c.label, a) for c in ex.candidates for a in c.same_as]
+    if twins:
+        lines.append("  the same hardware under another name (not listed twice):")
+        lines += [f"    {a} = {lab}" for lab, a in twins]
     lines.append("")
     lines.append(f"hard-multiplier lower bound at {ex.cycles_per_sample} cycle(s) per sample: {ex.lower_bound}")
     if ex.recommended is not None:

@@ -179,8 +179,13 @@ def worst_shortfall(spec, freqs, mag) -> str:
             worst = rel
             unit = "" if b.kind == "shaped" else " dB"
             what = {"pass": "ripple", "stop": "attenuation", "shaped": "error"}[b.kind]
-            msg = (f"band {i + 1} ({b.kind}, {b.lo:g}-{b.hi:g} Hz) {what} {ach:.4g}{unit} "
-                   f"against {req:.4g}{unit} required ({-mar:.3g}{unit} short)")
+            if math.isinf(ach):   # a pass band whose error reaches the gain: no dB figure
+                msg = (f"band {i + 1} ({b.kind}, {b.lo:g}-{b.hi:g} Hz): the response departs "
+                       f"from the band's gain by the gain itself or more ({req:.4g}{unit} "
+                       f"ripple required)")
+            else:
+                msg = (f"band {i + 1} ({b.kind}, {b.lo:g}-{b.hi:g} Hz) {what} {ach:.4g}{unit} "
+                       f"against {req:.4g}{unit} required ({-mar:.3g}{unit} short)")
     return msg
 
 

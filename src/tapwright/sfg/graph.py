@@ -315,6 +315,28 @@ def seal(g) -> nx.MultiDiGraph:
     return g
 
 
+_HW_ATTRS = ("kind", "fmt", "coeff", "coeff_frac", "table", "select", "zero_port", "steps",
+             "rounding", "overflow")
+
+
+def fingerprint(g, rounds: int = 4) -> int:
+    """A hash of the hardware ``g`` describes, free of node names (colour refinement:
+    each node's label is its operator attributes, then ``rounds`` times its label with
+    the labels of its operands and readers and their edges' delays, registers, signs,
+    shifts and ports). Equal graphs give equal values; unequal ones almost surely
+    differ (within one Python process: string hashes are salted per process)."""
+    lab = {v: hash(tuple(repr(n.get(k)) for k in _HW_ATTRS)) for v, n in g._node.items()}
+
+    def edge(e):
+        return e["z"], e["pipe"], e["sign"], e["shift"], e["port"]
+    for _ in range(rounds):
+        lab = {v: hash((lab[v],
+                        tuple(sorted((lab[u],) + edge(e) for u, kd in g._pred[v].items() for e in kd.values())),
+                        tuple(sorted((lab[w],) + edge(e) for w, kd in g._succ[v].items() for e in kd.values()))))
+               for v in lab}
+    return hash(tuple(sorted(lab.values())))
+
+
 def copy_graph(g) -> nx.MultiDiGraph:
     """An independent copy (node and edge attribute dicts copied, graph dict shallow
     without the ``_`` entries, which cache figures of this graph's topology).

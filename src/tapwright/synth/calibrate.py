@@ -141,7 +141,7 @@ def calibrate_one(spec, device: str, label: str, workdir: str, pnr: bool = False
         est, got = syn["estimate"], syn["synth"]
         _fmax_fields(row, est, syn.get("pnr"))
         row["structure"] = res.exploration and next(
-            (c.structure for c in res.exploration.candidates if c.label == label), "")
+            (c.structure for lab, c in res.exploration.by_label().items() if lab == label), "")
         for k in CATEGORIES:
             row[f"est_{k}"] = est.get(k)
             row[f"syn_{k}"] = got.get(k)
@@ -310,7 +310,7 @@ def reestimate_rows(rows, spec_dir="specs") -> list[dict]:
         if key not in plans:
             sp = dataclasses.replace(_load(str(Path(spec_dir) / f"{r['spec']}.toml")), device=r["device"])
             res = plan(sp)
-            plans[key] = {c.label: c for c in (res.exploration.candidates if res.exploration else [])}
+            plans[key] = res.exploration.by_label() if res.exploration else {}
         cand = plans[key].get(r["candidate"])
         if cand is None or r.get("error"):
             r["error"] = r.get("error") or "candidate no longer explored; old estimate kept"

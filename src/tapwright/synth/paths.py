@@ -116,7 +116,7 @@ def main(argv=None) -> int:
         print(f"error: {exc}", file=sys.stderr)
         return 2
     res = plan(spec)
-    cands = {c.label: c for c in (res.exploration.candidates if res.exploration else [])}
+    cands = res.exploration.by_label() if res.exploration else {}
     if a.candidate not in cands:
         print(f"error: {a.spec}: candidate {a.candidate!r} is not explored for {a.device} "
               f"(allowed: {', '.join(sorted(cands))})", file=sys.stderr)
