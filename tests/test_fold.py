@@ -417,3 +417,65 @@ def test_parhi_folded_delays_by_hand(K):
         assert np.array_equal(tr.y, reference.run(d, x))
         # the sum is complete K + 1 cycles after the sample is taken (acc = stage + K + 1)
         assert (tr.latencies == K + 1).all()
+
+
+# ------------------------------------------------------------------------------------------------
+# (5) registers inside a multiplexer (mux_regs) and in front of an accumulator
+
+
+@pytest.mark.parametrize("L,K,r,sym", [(24, 12, 1, 1), (24, 12, 2, 1), (40, 20, 3, 1), (13, 7, 2, 0),
+                                       (18, 9, 1, -1)])
+def test_registers_inside_a_multiplexer(L, K, r, sym):
+    """A multiplexer with ``r`` registers between its select levels equals the plain one
+    followed by ``r`` pipeline registers: the cycle interpreter (which reads the graph
+    that way), the Amaranth simulation of the lowering (which builds the split tree) and
+    the bit-true reference agree, cycle by cycle."""
+    from tapwright.sfg.graph import copy_graph
+
+    rng = np.random.default_rng(L * 100 + K * 10 + r)
+    d = fir_design(make_coeffs(rng, L, sym, 12), 12, 10, 14)
+    tr = ("symmetric",) if sym else ()
+    g = copy_graph(realize(d, Recipe("timeshared", tr, fold=K, register_output=False)))
+    muxes = [v for v, n in g.nodes(data=True) if n["kind"] == "mux"]
+    assert muxes
+    for v in muxes:
+        g.nodes[v]["mux_regs"] = r
+        for _, _, e in g.out_edges(v, data=True):
+            e["pipe"] = r
+    x = stimulus(rng, d.in_fmt, 24)
+    valid = gaps(rng, 30 * len(x), 0.3)
+    t = run_cycles(g, x, valid)
+    a = amaranth_trace(g, x, valid)  # Amaranth pysim of lower(g): the split select tree
+    assert list(zip(t.out_cycles.tolist(), [int(v) for v in t.y])) == a["outs"]
+    assert t.in_ready.tolist() == a["ready"]
+    assert np.array_equal(t.y, reference.run(d, x))  # bit-true reference
+    check_contract(t, g)
+
+
+def test_pipeliner_splits_long_multiplexers_and_registers_accumulators():
+    """On iCE40 delays a 20:1 operand multiplexer is longer than a 14 ns period: the
+    pipeliner puts registers inside it (every reader at least that many stages later) and
+    one in front of each accumulator whose product path does not fit with it; the longest
+    path is then set by the slowest node no register can cut (the model's own rule,
+    sfg/transforms/pipeline.py), and the result is bit-exact against the reference."""
+    from tapwright.cost.timing import delay_function
+    from tapwright.sfg.transforms.pipeline import critical_path, node_delays
+
+    f = delay_function("ice40")
+    rng = np.random.default_rng(3)
+    d = fir_design(make_coeffs(rng, 40, 1, 16), 16, 14, 18)
+    g = realize(d, Recipe("timeshared", ("symmetric",), fold=20, period=14.0, delay_model="ice40"))
+    split = {v: n["mux_regs"] for v, n in g.nodes(data=True) if n.get("mux_regs")}
+    assert split
+    for v, r in split.items():
+        assert all(e["pipe"] >= r for _, _, e in g.out_edges(v, data=True))
+    assert any(e["pipe"] >= 1 for u, w, e in g.edges(data=True)
+               if g.nodes[u]["kind"] == "mul" and g.nodes[w]["kind"] == "acc")
+    nd = node_delays(g, f)
+    floor = max(t for v, t in nd.items() if g.nodes[v]["kind"] != "mux")
+    unsplit = realize(d, Recipe("timeshared", ("symmetric",), fold=20, delay_model="ice40"))
+    assert critical_path(g, f) <= max(14.0, floor) + 1e-9 < critical_path(unsplit, f)
+    x = stimulus(rng, d.in_fmt, 30)
+    t = run_cycles(g, x, gaps(rng, 900, 0.3))
+    assert np.array_equal(t.y, reference.run(d, x))
+    check_contract(t, g)

@@ -56,3 +56,33 @@ def test_cli_compares_with_nextpnr(tmp_path, capsys):
     assert main([str(spec), label, "--workdir", str(tmp_path / "w")]) == 0
     out = capsys.readouterr().out
     assert "model path" in out and "nextpnr path" in out and "MHz achieved" in out
+
+
+def test_split_multiplexer_clock_against_nextpnr(tmp_path):
+    """servo_diff's folded candidate on ECP5 at 100 MHz: the pipeliner puts a register
+    inside its 19:1 operand multiplexers and in front of the accumulator. The estimated
+    clock is checked against nextpnr-ecp5 place and route of the built design (the
+    issue's 25 % bound); measured 2026-12-03: 107.0 MHz estimated, 101.4 MHz placed,
+    where the unsplit design placed at 86 MHz."""
+    from pathlib import Path
+
+    from tapwright.build import build_design
+    from tapwright.synth.run import synth_folder
+
+    root = Path(__file__).parent.parent
+    spec = dataclasses.replace(parse_spec_text((root / "specs" / "servo_diff.toml").read_text()),
+                               device="ecp5")
+    res = plan(spec)
+    f = delay_function("ecp5")
+    pick = None
+    for c in sorted(res.exploration.candidates, key=lambda c: (c.estimate.dsp, c.label)):
+        g = realize(c.fixed or res.design.fixed, c.recipe, delays=f)
+        if c.structure == "timeshared" and any(n.get("mux_regs") for n in g._node.values()):
+            pick = c
+            break
+    assert pick is not None
+    out = build_design(res, structure=pick.label, out=tmp_path / "d", force=True)
+    syn = synth_folder(out, device="ecp5", pnr=True)
+    est, got = syn["estimate"]["fmax_mhz"], syn["pnr"]["fmax_mhz"]
+    assert abs(est / got - 1) <= 0.25, (pick.label, est, got)
+    assert got >= 95.0, (pick.label, got)

@@ -183,6 +183,9 @@ class DeviceProfile:
     #: beyond that table, LUT cells per multiplexed bit per extra data input
     #: (0: from lut_inputs, one LUT per (k - 3) extra inputs)
     mux_lut_per_input_bit: float = 0.0
+    #: LUT cells per bit per extra input of each level of a multiplexer with registers
+    #: inside (pipeline ``mux_regs``; short levels, not mapped for depth); 0: as above
+    mux_split_lut_per_input_bit: float = 0.0
 
     @property
     def cell_classes(self) -> dict:
@@ -345,6 +348,7 @@ ECP5 = DeviceProfile(
          "products synth_ecp5 builds the adder tree as full-adder LUT4 pairs (about 2 LUT4 per bit "
          "per tree adder) with one final CCU2C chain; rx_chan_dec4 polyphase+symmetric 5138 LUT4 / "
          "915 CCU2C for a 79-product tree]"),
+        ("mux_split_lut_per_input_bit", "[C: servo_diff timeshared+symmetric/k19/p7.5 on ECP5 (2026-12-03, tapwright synth): two 20-bit 19:1 multiplexers with one register inside (three 8:1 and one 3:1 per multiplexer) and 790 LUT4 in all, of which about 720 for the multiplexers (the rest estimated at 73): 0.78 LUT4 per bit per input; the same structure unsplit and unpipelined: 2040 LUT4, about 2.7; in line with the 0.55-0.8 of the large multiplexers off the critical path in audio_dec64 designs]"),
         ("mux_inputs_per_level", "[M: from memory of the ECP5 slice (FPGA-DS-02012): two LUT4 and "
          "a PFUMX make a 4:1 multiplexer in one slice, L6MUX21 widens it]; [C: calibration run: the "
          "Yosys netlists of time-shared designs hold PFUMX and L6MUX21 cells]"),
@@ -355,6 +359,7 @@ ECP5 = DeviceProfile(
     mux_inputs_per_level=4,
     mux_lut_per_bit=((2, 1.12), (3, 2.25), (4, 4.19), (5, 10.31), (6, 7.31), (7, 9.31), (8, 9.25)),
     mux_lut_per_input_bit=1.5,
+    mux_split_lut_per_input_bit=0.8,
 )
 
 ICE40 = DeviceProfile(

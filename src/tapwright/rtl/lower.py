@@ -90,6 +90,7 @@ from amaranth.lib.wiring import In, Out
 
 from ..fixed.formats import bits_for_range, round_scalar
 from ..sfg.graph import GraphError, eval_order, input_interval, operands, output_node
+from ..sfg.transforms.pipeline import split_bits
 from ..sfg.transforms.pipeline import stages as _stages
 
 __all__ = ["lower", "FilterBlock", "timing_of"]
@@ -263,6 +264,46 @@ class _Lowering(NetlistWalk):
         self._line_memo[u] = regs
         return regs
 
+    def tap(self, u, z, captured, pipe):
+        # a multiplexer with registers inside (mux_regs r, set by the pipeliner): its value
+        # r cycles late is the output of its last select level (_split_mux)
+        r = self.g.nodes[u].get("mux_regs", 0)
+        if r and not captured and z == 0 and pipe <= r:
+            if pipe < r:
+                raise GraphError(f"multiplexer {u} is read {pipe} cycles late, inside its "
+                                 f"{r} registers")
+            return self._split_out[u]
+        return super().tap(u, z, captured, pipe)
+
+    def _split_mux(self, v, words):
+        """``words[step]`` with ``mux_regs`` registers between select levels: level l is a
+        case on its share of the step bits (sfg.transforms.pipeline.split_bits) at cone
+        delay d + l, so the last level's output equals the plain multiplexer delayed r
+        cycles (the captured words hold still through an iteration)."""
+        m, n = self.m, self.g.nodes[v]
+        r = int(n["mux_regs"])
+        K = len(words)
+        root, d = self.tags[v][1], self.tags[v][2]
+        steps = [self.cone(root, d + lv)[1] for lv in range(r + 1)]   # made before any case
+        bits = split_bits(K, r)
+        w = n["fmt"].bits
+        level, lo = list(words), 0
+        for lv, b in enumerate(bits):
+            last = lv == len(bits) - 1
+            sel = steps[lv][lo:lo + b]
+            nxt = []
+            for j in range(0, len(level), 1 << b):
+                o = Signal(signed(w), name=f"mx_{_sname(v)}_l{lv}_{j >> b}", reset_less=True)
+                dom = m.d.comb if last else m.d.sync
+                with m.Switch(sel):
+                    for i, word in enumerate(level[j:j + (1 << b)]):
+                        with m.Case(i):
+                            dom += o.eq(word)
+                nxt.append(o)
+            level, lo = nxt, lo + b
+        self._split_out = getattr(self, "_split_out", {})
+        self._split_out[v] = level[0]
+
     def _pipe_reg(self, prev, u, z, captured, pipe):
         s = Signal(signed(len(prev)), name=f"p_{_sname(u)}_z{z}{'c' if captured else ''}_{pipe}",
                    reset_less=True)
@@ -342,6 +383,9 @@ class _Lowering(NetlistWalk):
                     srcs[p] = a.shift_left(s) if s else a
                 else:
                     raise GraphError(f"multiplexer {v} selects unconnected port {p}")
+            if n.get("mux_regs"):
+                self._split_mux(v, [srcs[p] for p in n["select"][:self.tags[v][1][1]]])
+                return
             with m.Switch(step):
                 for p, ss in sorted(groups.items(), key=lambda kv: kv[1][0]):
                     with m.Case(*ss):

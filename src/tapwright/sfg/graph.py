@@ -315,7 +315,7 @@ def seal(g) -> nx.MultiDiGraph:
     return g
 
 
-_HW_ATTRS = ("kind", "fmt", "coeff", "coeff_frac", "table", "select", "zero_port", "steps",
+_HW_ATTRS = ("kind", "fmt", "coeff", "coeff_frac", "table", "select", "zero_port", "steps", "mux_regs",
              "rounding", "overflow")
 
 

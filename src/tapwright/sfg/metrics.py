@@ -18,7 +18,7 @@ from functools import lru_cache
 
 from ..fixed.formats import bits_for_range
 from .graph import edge_list, kept, operands
-from .transforms.pipeline import critical_path, latency, unit_delays
+from .transforms.pipeline import critical_path, latency, split_groups, unit_delays
 
 
 def is_free_coeff(c: int) -> bool:
@@ -229,7 +229,12 @@ def measure(g, delays=unit_delays) -> Metrics:
             m.zreg_bits += g.nodes[u]["fmt"].bits - tz.get(u, 0)
             m.delay_elements += 1
     for (u, _), p in pmax.items():
-        m.pipe_bits += p * (g.nodes[u]["fmt"].bits - tz.get(u, 0))
+        w = g.nodes[u]["fmt"].bits - tz.get(u, 0)
+        m.pipe_bits += p * w
+        r = g.nodes[u].get("mux_regs", 0)
+        if r:
+            # the first r registers sit inside the multiplexer, one word per group
+            m.pipe_bits += sum(n - 1 for n in split_groups(int(g.nodes[u]["steps"]), r)) * w
     m.zero_lsbs = tz
     m.latency = latency(g)
     if m.fold > 1:

@@ -27,28 +27,42 @@ from pathlib import Path
 
 def model_path(g, delays) -> list[dict]:
     """The longest combinational path of ``g`` under ``delays``, start to end."""
-    from ..sfg.transforms.pipeline import arrival_times, node_delays
+    from ..sfg.transforms.pipeline import arrival_times, mux_splits, node_delays
 
     arr = arrival_times(g, delays)
     nd = node_delays(g, delays)
     if not arr:
         return []
     nodes = g._node
+    # a multiplexer with registers inside: its readers start from its last select level
+    split = mux_splits(g, delays)
     v = max(arr, key=lambda n: (arr[n], str(n)))
     out = []
+    tail = False
     while True:
         n = nodes[v]
         fmt = n.get("fmt")
-        out.append({"node": v, "kind": n["kind"], "role": n.get("role"),
+        t = split[v][1][-1] if tail else (arr[v] if v in split else nd[v])
+        out.append({"node": v, "kind": n["kind"],
+                    "role": (n.get("role") or "") + (" (last level)" if tail else
+                                                     " (first levels)" if v in split else "")
+                    if v in split else n.get("role"),
                     "bits": fmt.bits if fmt is not None else None,
-                    "delay_ns": round(nd[v], 3), "arrival_ns": round(arr[v], 3)})
+                    "delay_ns": round(t, 3), "arrival_ns": round(t if tail else arr[v], 3)})
         if n["kind"] == "mux":
             break      # its operands are registers (the captured line)
-        preds = [u for u, kd in g._pred[v].items()
-                 if nodes[u]["kind"] != "acc" and any(e["z"] == 0 and e["pipe"] == 0 for e in kd.values())]
+
+        def comb(u, kd):
+            r = split[u][0] if u in split else 0
+            return any(e["z"] == 0 and e["pipe"] == r for e in kd.values())
+        preds = [u for u, kd in g._pred[v].items() if nodes[u]["kind"] != "acc" and comb(u, kd)]
         if not preds:
             break
-        v = max(preds, key=lambda u: (arr[u], str(u)))
+
+        def arrival(u):
+            return split[u][1][-1] if u in split else arr[u]
+        v = max(preds, key=lambda u: (arrival(u), str(u)))
+        tail = v in split
     out.reverse()
     return out
 

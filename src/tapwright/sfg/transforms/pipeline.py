@@ -100,12 +100,18 @@ def arrival_times(g, delays=unit_delays, *, cut_pipes: bool = True) -> dict:
     nd = node_delays(g, delays)
     preds = {v: [] for v in nodes}
     succs = {v: [] for v in nodes}
+    # a multiplexer with registers inside (``mux_regs``, set by pipeline()): its readers
+    # through that many pipeline registers continue from its last segment
+    split = mux_splits(g, delays) if cut_pipes else {}
     for u, v, e in edge_list(g):
         # an accumulator's output and a multiplexer's operands (the captured line, rtl/lower.py)
         # are registers
         if nodes[u]["kind"] == "acc" or nodes[v]["kind"] == "mux":
             continue
-        if not (e["z"] > 0 or (cut_pipes and e["pipe"] > 0)):
+        if u in split and e["z"] == 0 and e["pipe"] == split[u][0]:
+            preds[v].append(u)
+            succs[u].append(v)
+        elif not (e["z"] > 0 or (cut_pipes and e["pipe"] > 0)):
             preds[v].append(u)
             succs[u].append(v)
     # Kahn's order over the combinational edges (a max-plus sum does not depend on it)
@@ -114,7 +120,11 @@ def arrival_times(g, delays=unit_delays, *, cut_pipes: bool = True) -> dict:
     arr = {}
     while ready:
         v = ready.pop()
-        arr[v] = max((arr[u] for u in preds[v]), default=0.0) + nd[v]
+        if v in split:
+            arr[v] = max(split[v][1][:-1])
+        else:
+            arr[v] = max((split[u][1][-1] if u in split else arr[u] for u in preds[v]),
+                         default=0.0) + nd[v]
         for w in succs[v]:
             indeg[w] -= 1
             if indeg[w] == 0:
@@ -122,6 +132,58 @@ def arrival_times(g, delays=unit_delays, *, cut_pipes: bool = True) -> dict:
     if len(arr) != len(preds):
         raise ValueError("combinational loop")
     return arr
+
+
+def split_bits(steps: int, regs: int) -> list:
+    """The step counter's bits, low first, shared out among ``regs + 1`` segments of a
+    multiplexer of ``steps`` words (as evenly as they go; a segment has one bit at least)."""
+    B = max(1, (steps - 1).bit_length())
+    parts = min(regs + 1, B)
+    return [B // parts + (1 if i < B % parts else 0) for i in range(parts)]
+
+
+def split_groups(steps: int, regs: int) -> list:
+    """Words held by each level of registers inside a multiplexer of ``steps`` words split
+    by ``regs`` registers (:func:`split_bits`): the groups left after each segment."""
+    out, groups = [], steps
+    for b in split_bits(steps, regs)[:-1]:
+        groups = -(-groups // (1 << b))
+        out.append(groups)
+    return out
+
+
+def mux_splits(g, delays) -> dict:
+    """``{mux: (registers inside it, [segment delays])}`` of the multiplexers that
+    :func:`pipeline` split (node attribute ``mux_regs``)."""
+    seg = getattr(delays, "mux_segments", None)
+    out = {}
+    for v, n in g._node.items():
+        r = n.get("mux_regs", 0)
+        if r:
+            segs = seg(g, v, r) if seg else [node_delay(g, v, delays)] * (r + 1)
+            out[v] = (r, segs)
+    return out
+
+
+def _split_choice(g, v, t, period, delays):
+    """(registers, segment delays) that bring multiplexer ``v`` (delay ``t``) within
+    ``period``, or the split with the shortest longest segment when none does; None when
+    splitting does not help (or the delay model cannot time segments)."""
+    seg = getattr(delays, "mux_segments", None)
+    if seg is None or t <= period:
+        return None
+    n = g.nodes[v]
+    steps = int(n.get("steps", len(n.get("select") or ())))
+    best = None
+    for r in range(1, max(1, (steps - 1).bit_length())):
+        segs = seg(g, v, r)
+        if best is None or max(segs) < max(best[1]) - 1e-12:
+            best = (r, segs)
+        if max(segs) <= period:
+            break
+    if best is None or max(best[1]) >= t - 1e-12:
+        return None
+    return best
 
 
 def critical_path(g, delays=unit_delays) -> float:
@@ -180,18 +242,47 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
     edges = edge_list(h)
     for _, _, e in edges:
         e["pipe"] = 0
+    for n in nodes.values():
+        n.pop("mux_regs", None)
     stage, arr = {}, {}
+    # multiplexers longer than the period get registers inside them (the lowering puts
+    # them between the levels of its select tree): {mux: (registers, last segment's delay)};
+    # every reader then sits that many stages later and starts from the last segment
+    split = {}
+    # no register cuts through another node: the slowest of those bounds the clock anyway,
+    # so a multiplexer is split only as far as that bound (or the period, if longer)
+    floor = max((t for v, t in nd.items() if nodes[v]["kind"] != "mux"), default=0.0)
+    mux_period = max(period, floor)
+
+    def ready_at(u):
+        return stage[u] + (split[u][0] if u in split else 0)
+
+    def out_arr(u):
+        return split[u][1] if u in split else arr[u]
+
     for members in order:
         if len(members) == 1 and members[0] not in pred[members[0]]:
             v = members[0]
             ext = [(u, e) for u, kd in pred[v].items() for e in kd.values()]
-            s0 = max((stage[u] for u, _ in ext), default=0)
+            s0 = max((ready_at(u) for u, _ in ext), default=0)
             t = nd[v]
-            a_in = max((arr[u] for u, e in ext if stage[u] == s0 and e["z"] == 0), default=0.0)
+            a_in = max((out_arr(u) for u, e in ext if ready_at(u) == s0 and e["z"] == 0), default=0.0)
             kind = nodes[v]["kind"]
             if kind == "mux":
                 a_in = 0.0   # its operands are the captured line's registers
+                cut = _split_choice(h, v, t, mux_period, delays)
+                if cut is not None:
+                    r, segs = cut
+                    nodes[v]["mux_regs"] = r
+                    split[v] = (r, segs[-1])
+                    stage[v], arr[v] = s0, max(segs[:-1])
+                    continue
             if kind == "acc":
+                # the product's path ends in the accumulator's adder: a register in front
+                # of it when the two do not fit together (the lowering delays the
+                # accumulator's steps by that register)
+                if a_in + t > period and t > 0 and a_in > 0:
+                    s0 += 1
                 s0 += int(nodes[v]["steps"]) + 1
                 stage[v], arr[v] = s0, 0.0
                 continue
@@ -205,21 +296,21 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
         else:
             # a loop: one stage; arrival inside along its zero-delay edges
             ext = [(u, v, e) for v in members for u, _, e in h.in_edges(v, data=True) if u not in members]
-            s0 = max((stage[u] for u, _, _ in ext), default=0)
+            s0 = max((ready_at(u) for u, _, _ in ext), default=0)
             sub = nx.DiGraph()
             sub.add_nodes_from(members)
             sub.add_edges_from((u, v) for u, v, e in h.edges(data=True)
                                if u in members and v in members and e["z"] == 0)
             ain = {}
             for v in nx.lexicographical_topological_sort(sub, key=str):
-                a = max((arr[u] for u, _, e in h.in_edges(v, data=True)
-                         if u not in members and stage[u] == s0 and e["z"] == 0), default=0.0)
+                a = max((out_arr(u) for u, _, e in h.in_edges(v, data=True)
+                         if u not in members and ready_at(u) == s0 and e["z"] == 0), default=0.0)
                 a = max([a] + [ain[u] for u in sub.predecessors(v)])
                 ain[v] = a + nd[v]
             if max(ain.values()) > period and any(
-                    stage[u] == s0 and arr[u] > 0 for u, _, e in ext if e["z"] == 0):
+                    ready_at(u) == s0 and out_arr(u) > 0 for u, _, e in ext if e["z"] == 0):
                 s0 += 1
-                ain = {v: a - max((arr[u] for u, _, e in ext if e["z"] == 0 and stage[u] == s0 - 1),
+                ain = {v: a - max((out_arr(u) for u, _, e in ext if e["z"] == 0 and ready_at(u) == s0 - 1),
                                   default=0.0) for v, a in ain.items()}
             for v in members:
                 stage[v], arr[v] = s0, ain[v]
@@ -399,4 +490,4 @@ def iteration_bound(g, delays=unit_delays) -> float:
 
 
 __all__ = ["pipeline", "retime", "iteration_bound", "critical_path", "latency", "stages",
-           "unit_delays", "arrival_times", "eval_order"]
+           "unit_delays", "arrival_times", "eval_order", "mux_splits", "split_bits", "split_groups"]
