@@ -232,6 +232,16 @@ def estimate(g, device: str) -> Estimate:
                     taken.add(w)
                     break
         in_block |= taken
+        # the block's output register (P) takes one pipeline register after its post-adder
+        # ([M: from memory of UG479, DSP48E1 PREG after the ALU]; calibration run of
+        # 2026-12-03 on xc7: rx_chan_dec4 hb+fir2/p3.49 synthesizes 2217 FDRE, 2717
+        # estimated without this rule and 2096 with it; adc_halfband halfband+polyphase/p2.4
+        # 723 FDRE against 786 and 674)
+        for w in taken:
+            if all(e["pipe"] >= 1 for kd in g._succ[w].values() for e in kd.values()):
+                bits = g.nodes[w]["fmt"].bits - m.zero_lsbs.get(w, 0)
+                ff -= bits
+                absorbed += bits
     for w in acc_in_dsp:
         ff -= g.nodes[w]["fmt"].bits
     # adder trees fed by hard products: on some families synthesis compresses all but the
@@ -288,7 +298,8 @@ def estimate(g, device: str) -> Estimate:
         for b in split_bits(int(g.nodes[v]["steps"]), r):
             groups = -(-n // (1 << b))
             k = min(n, 1 << b)
-            lut += groups * (int(round(short * (k - 1) * width)) if short
+            # up to 4 inputs a level is one LUT level: the probes' figure holds
+            lut += groups * (int(round(short * (k - 1) * width)) if short and k > 4
                              else _mux_luts(prof, width, k))
             n = groups
     for entries, width in m.tables:
