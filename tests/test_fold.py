@@ -200,6 +200,14 @@ CASES = {
                                                 Fmt(12, 11), "half_even", "saturate"),
                                     Recipe("chain", stage_transforms=(("symmetric",), ("polyphase", "symmetric")),
                                            stage_folds=(3, 2), period=2)),
+    # device delays: the pipeliner puts registers inside the multiplexers (mux_regs 2 here)
+    # and in front of the accumulators
+    "timeshared_split_ice40": (_fir(SYM15, dec=2), Recipe("timeshared", ("polyphase", "symmetric"), fold=8,
+                                                          period=6.0, delay_model="ice40")),
+    "chain_split_ice40": (FixedDesign((FirStage(SYM15, 10, Fmt(14, 11), decimation=2, phase=1),
+                                       FirStage(SYM12, 10, Fmt(16, 11))), Fmt(12, 11), "half_even", "saturate"),
+                          Recipe("chain", stage_transforms=(("polyphase", "symmetric"), ("symmetric",)),
+                                 stage_folds=(4, 6), period=4.0, delay_model="ice40")),
 }
 
 
@@ -287,7 +295,7 @@ def amaranth_trace(g, x, valid, tail=2):
 AMARANTH_CASES = ["timeshared_sym_k4", "timeshared_anti_k3_pipelined", "timeshared_plain_k2",
                   "timeshared_polyphase_dec3_k4", "timeshared_polyphase_dec2_k8", "chain_two_folds",
                   "chain_folded_then_polyphase", "chain_cic_then_folded", "sos_df1_pipelined", "cic_pipelined",
-                  "direct_latency0"]
+                  "direct_latency0", "timeshared_split_ice40", "chain_split_ice40"]
 
 
 @pytest.mark.parametrize("case", AMARANTH_CASES)
@@ -479,3 +487,11 @@ def test_pipeliner_splits_long_multiplexers_and_registers_accumulators():
     t = run_cycles(g, x, gaps(rng, 900, 0.3))
     assert np.array_equal(t.y, reference.run(d, x))
     check_contract(t, g)
+
+
+@pytest.mark.parametrize("case", ["timeshared_split_ice40", "chain_split_ice40"])
+def test_split_cases_still_split(case):
+    # the two cases above exist to run split multiplexers through the Amaranth comparison
+    d, recipe = CASES[case]
+    g = realize(d, recipe)
+    assert any(n.get("mux_regs") for n in g._node.values())
