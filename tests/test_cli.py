@@ -309,3 +309,31 @@ def test_recipes_giving_the_same_graph_are_listed_once(tmp_path, capsys):
     assert main(["plan", str(spec)]) == 0
     out = capsys.readouterr().out
     assert f"{alias} = {twin.label}" in out
+
+
+def test_sheet_and_report_say_where_the_pipeline_registers_are(tmp_path):
+    """design.json "pipeline" and the report line: a folded ECP5 design at 100 MHz has
+    registers inside its operand multiplexers and one product registered in front of its
+    accumulator; an unpipelined one has no period (strict JSON: no Infinity)."""
+    import dataclasses
+
+    from tapwright.build import build_design
+
+    root = Path(__file__).parent.parent
+    spec = dataclasses.replace(parse_spec_text((root / "specs" / "servo_diff.toml").read_text()),
+                               device="ecp5")
+    res = plan(spec)
+    piped = next(c for c in res.exploration.candidates
+                 if c.structure == "timeshared" and c.recipe.period is not None and c.estimate.dsp <= 2)
+    unpiped = next(c for c in res.exploration.candidates
+                   if c.structure == "timeshared" and c.recipe.period is None)
+
+    def strict(p):
+        return json.loads(p.read_text(), parse_constant=lambda c: pytest.fail(f"non-JSON {c}"))
+    d = build_design(res, structure=piped.label, out=tmp_path / "a")
+    pl = strict(d / "design.json")["pipeline"]
+    assert pl["split_multiplexers"] and pl["registered_products"] >= 1 and pl["period_ns"] > 0
+    assert "registers inside 2 operand multiplexers" in (d / "report.md").read_text()
+    d = build_design(res, structure=unpiped.label, out=tmp_path / "b")
+    assert strict(d / "design.json")["pipeline"]["period_ns"] is None
+    assert "pipelined for" not in (d / "report.md").read_text()

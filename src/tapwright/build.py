@@ -20,6 +20,7 @@ JSON keys, fixed seeds).
 from __future__ import annotations
 
 import json
+import math
 import os
 import re
 import shutil
@@ -61,6 +62,21 @@ def default_vector_samples(fixed: FixedDesign) -> int:
     return int(min(8192, max(256, 2 * span + 16 * dec)))
 
 
+def _pipeline_summary(g) -> dict:
+    """Where the pipeline registers are: the target period, the edges carrying them, the
+    operand multiplexers with registers inside (levels each), the products registered in
+    front of their accumulators."""
+    edges = [(u, v, e) for u, v, e in g.edges(data=True) if e["pipe"]]
+    period = g.graph.get("pipeline_period")
+    return {
+        "period_ns": period if period is not None and math.isfinite(period) else None,
+        "register_edges": len(edges),
+        "split_multiplexers": {str(v): int(n["mux_regs"]) for v, n in g.nodes(data=True) if n.get("mux_regs")},
+        "registered_products": sum(1 for u, v, _ in edges if g.nodes[u]["kind"] == "mul"
+                                   and g.nodes[v]["kind"] == "acc"),
+    }
+
+
 def design_sheet(*, name: str, fixed: FixedDesign, recipe: Recipe, g, spec_dict: dict | None,
                  estimate: dict | None, extra: dict | None, vectors: list) -> dict:
     """The design.json dictionary (contract section 3, plus ``recipe``, ``testbench``, ``vectors``)."""
@@ -89,6 +105,7 @@ def design_sheet(*, name: str, fixed: FixedDesign, recipe: Recipe, g, spec_dict:
         "input_interval": int(input_interval(g)),
         "latency": int(latency(g)),
         "stages": [st.as_dict() for st in fixed.stages],
+        "pipeline": _pipeline_summary(g),
         "estimate": dict(estimate or {}),
         "vector_dir": VECTOR_DIR,
         "vectors": vectors,

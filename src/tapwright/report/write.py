@@ -293,6 +293,18 @@ def write_report(folder, *, spec, plan, fixed, sheet: dict, candidates=(), chose
              f"bits frac {sheet['output']['frac']}; rounding {sheet['rounding']}; overflow {sheet['overflow']}")
     L.append(f"- structure `{sheet['structure']}` ({sheet.get('candidate', sheet['structure'])}); latency "
              f"{sheet['latency']} cycles; input interval {sheet['input_interval']} cycles")
+    pl = sheet.get("pipeline") or {}
+    if pl.get("period_ns") is not None and pl["period_ns"] != float("inf"):
+        txt = (f"- pipelined for {pl['period_ns']:.3g} ns of logic per clock: registers on "
+               f"{pl['register_edges']} graph edges")
+        split = pl.get("split_multiplexers") or {}
+        if split:
+            txt += (f"; registers inside {len(split)} operand multiplexer"
+                    f"{'s' if len(split) > 1 else ''} ({', '.join(sorted({str(r) for r in split.values()}))} "
+                    f"per multiplexer, between its select levels)")
+        if pl.get("registered_products"):
+            txt += f"; {pl['registered_products']} product(s) registered in front of the accumulator"
+        L.append(txt)
     L.append("")
     L.append("## Estimate")
     L.append("")
