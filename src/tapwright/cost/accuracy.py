@@ -40,5 +40,9 @@ def accuracy_line(device: str) -> str:
         c = d.get(k)
         if c:
             parts.append(f"{names[k]} median {_pct(c['median'])}, worst {_pct(c['worst'])}")
-    return (f"Measured estimate error on {device} ({d.get('designs', '?')} example designs against "
+    line = (f"Measured estimate error on {device} ({d.get('designs', '?')} example designs against "
             f"{s.get('tool', 'Yosys')}, docs/accuracy.md): " + "; ".join(parts) + ".")
+    if not d.get("fmax"):
+        line += (" Its clock figure is not checked against place and route of whole designs "
+                 "(README: How accurate the estimates are).")
+    return line
