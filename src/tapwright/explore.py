@@ -315,7 +315,7 @@ def _rank(spec, sources, lb_fixed, *, name=None) -> Exploration:
     seen = {}
     shapes = set()
     unpiped = set()
-    by_figures = {}   # estimate figures -> [(candidate, graph)]: equal figures, maybe the same graph
+    by_figures = {}   # estimate figures -> [[candidate, graph, fingerprint or None]]
     delays = delay_function(spec.device)
     for fixed, r, chain in sources:
         if r.label in seen:
@@ -347,7 +347,10 @@ def _rank(spec, sources, lb_fixed, *, name=None) -> Exploration:
         twins = by_figures.setdefault(figures, [])
         if twins:
             fp = fingerprint(g)
-            twin = next((c0 for c0, g0 in twins if fingerprint(g0) == fp), None)
+            for t in twins:   # a graph's fingerprint is taken once, when first compared
+                if t[2] is None:
+                    t[2] = fingerprint(t[1])
+            twin = next((c0 for c0, _, f0 in twins if f0 == fp), None)
             if twin is not None:
                 # listed under the name that says more (a halfband's name keeps "halfband")
                 if len(r.transforms) > len(twin.recipe.transforms):
@@ -357,7 +360,7 @@ def _rank(spec, sources, lb_fixed, *, name=None) -> Exploration:
                     twin.same_as.append(r.label)
                 continue
         c = Candidate(r, est, fixed=fixed, chain=chain)
-        twins.append((c, g))
+        twins.append([c, g, None])
         _check(c, spec)
         c.cost = _cost(est, spec)
         cands.append(c)

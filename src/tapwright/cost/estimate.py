@@ -28,7 +28,7 @@ from dataclasses import dataclass, field
 
 from ..sfg.graph import edge_list, input_interval, operands
 from ..sfg.metrics import live_graph, measure, product_coeff_bits
-from ..sfg.transforms.pipeline import split_bits
+from ..sfg.transforms.pipeline import split_levels
 from . import timing
 from .devices import absorbed_registers, adder_cells, get_profile, mult_blocks, shift_register_cells
 
@@ -293,15 +293,11 @@ def estimate(g, device: str) -> Estimate:
             lut += _mux_luts(prof, width, inputs)
             continue
         # registers inside (pipeline mux_regs): each level a row of smaller multiplexers
-        n = inputs
         short = getattr(prof, "mux_split_lut_per_input_bit", 0.0)
-        for b in split_bits(int(g.nodes[v]["steps"]), r):
-            groups = -(-n // (1 << b))
-            k = min(n, 1 << b)
+        for _, k, groups in split_levels(int(g.nodes[v]["steps"]), r, inputs):
             # up to 4 inputs a level is one LUT level: the probes' figure holds
             lut += groups * (int(round(short * (k - 1) * width)) if short and k > 4
                              else _mux_luts(prof, width, k))
-            n = groups
     for entries, width in m.tables:
         lut += _table_luts(prof, entries, width)
     # control: phase counters, schedule counter, valid pipeline

@@ -14,7 +14,7 @@ import math
 from functools import lru_cache
 
 from ..sfg.metrics import is_free_coeff, product_coeff_bits
-from ..sfg.transforms.pipeline import split_bits, unit_delays
+from ..sfg.transforms.pipeline import split_levels, unit_delays
 from .devices import get_profile
 
 
@@ -117,18 +117,13 @@ def delay_function(device: str):
 
     def mux_segments(g, v, regs: int) -> list:
         """Delays of the ``regs + 1`` segments of multiplexer ``v`` when ``regs`` pipeline
-        registers sit inside it (:func:`split_bits`: each segment a case on its share of
+        registers sit inside it (:func:`split_levels`: each segment a case on its share of
         the step counter's bits, the lowering's ``mux_regs``)."""
         n = g.nodes[v]
-        steps = int(n.get("steps", len(n.get("select") or ())))
         k_in = max(2, prof.lut_inputs)
-        out, groups = [], steps
-        for b in split_bits(steps, regs):
-            ports = min(groups, 1 << b)
-            groups = -(-groups // (1 << b))
-            decode = math.ceil(math.log(b, k_in)) if b > 1 else 0
-            out.append((lut_levels(ports) + decode) * (d.lut_ns + d.route_ns))
-        return out
+        return [(lut_levels(ports) + (math.ceil(math.log(b, k_in)) if b > 1 else 0))
+                * (d.lut_ns + d.route_ns)
+                for b, ports, _ in split_levels(int(n.get("steps", len(n.get("select") or ()))), regs)]
 
     f.fixed_ns = d.adder_fixed_ns  # clock-to-out + setup + routing overhead per path
     f.device = device

@@ -146,6 +146,7 @@ class _Lowering(NetlistWalk):
         self.tags = top.tags
         self.rst = ResetSignal("sync")
         self.val: dict = {}
+        self._split_out: dict = {}   # multiplexer with registers inside -> its last level
         for v in eval_order(g):
             n = g.nodes[v]
             f = n["fmt"]
@@ -301,7 +302,6 @@ class _Lowering(NetlistWalk):
                             dom += o.eq(word)
                 nxt.append(o)
             level, lo = nxt, lo + b
-        self._split_out = getattr(self, "_split_out", {})
         self._split_out[v] = level[0]
 
     def _pipe_reg(self, prev, u, z, captured, pipe):

@@ -18,7 +18,7 @@ from functools import lru_cache
 
 from ..fixed.formats import bits_for_range
 from .graph import edge_list, kept, operands
-from .transforms.pipeline import critical_path, latency, split_groups, unit_delays
+from .transforms.pipeline import critical_path, latency, split_levels, unit_delays
 
 
 def is_free_coeff(c: int) -> bool:
@@ -234,7 +234,7 @@ def measure(g, delays=unit_delays) -> Metrics:
         r = g.nodes[u].get("mux_regs", 0)
         if r:
             # the first r registers sit inside the multiplexer, one word per group
-            m.pipe_bits += sum(n - 1 for n in split_groups(int(g.nodes[u]["steps"]), r)) * w
+            m.pipe_bits += sum(n - 1 for _, _, n in split_levels(int(g.nodes[u]["steps"]), r)[:-1]) * w
     m.zero_lsbs = tz
     m.latency = latency(g)
     if m.fold > 1:

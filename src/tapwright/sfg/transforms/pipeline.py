@@ -108,10 +108,8 @@ def arrival_times(g, delays=unit_delays, *, cut_pipes: bool = True) -> dict:
         # are registers
         if nodes[u]["kind"] == "acc" or nodes[v]["kind"] == "mux":
             continue
-        if u in split and e["z"] == 0 and e["pipe"] == split[u][0]:
-            preds[v].append(u)
-            succs[u].append(v)
-        elif not (e["z"] > 0 or (cut_pipes and e["pipe"] > 0)):
+        if (e["z"] == 0 and e["pipe"] == split[u][0]) if u in split else \
+                not (e["z"] > 0 or (cut_pipes and e["pipe"] > 0)):
             preds[v].append(u)
             succs[u].append(v)
     # Kahn's order over the combinational edges (a max-plus sum does not depend on it)
@@ -142,13 +140,16 @@ def split_bits(steps: int, regs: int) -> list:
     return [B // parts + (1 if i < B % parts else 0) for i in range(parts)]
 
 
-def split_groups(steps: int, regs: int) -> list:
-    """Words held by each level of registers inside a multiplexer of ``steps`` words split
-    by ``regs`` registers (:func:`split_bits`): the groups left after each segment."""
-    out, groups = [], steps
-    for b in split_bits(steps, regs)[:-1]:
-        groups = -(-groups // (1 << b))
-        out.append(groups)
+def split_levels(steps: int, regs: int, words: int | None = None) -> list:
+    """The select levels of a multiplexer of ``steps`` steps split by ``regs`` registers,
+    first level first, as ``(step bits, inputs per multiplexer, multiplexers)``; ``words``
+    (default ``steps``) is how many distinct words enter the first level. The multiplexers
+    of a level but the last each end in a register."""
+    out, n = [], steps if words is None else words
+    for b in split_bits(steps, regs):
+        groups = -(-n // (1 << b))
+        out.append((b, min(n, 1 << b), groups))
+        n = groups
     return out
 
 
@@ -490,4 +491,4 @@ def iteration_bound(g, delays=unit_delays) -> float:
 
 
 __all__ = ["pipeline", "retime", "iteration_bound", "critical_path", "latency", "stages",
-           "unit_delays", "arrival_times", "eval_order", "mux_splits", "split_bits", "split_groups"]
+           "unit_delays", "arrival_times", "eval_order", "mux_splits", "split_bits", "split_levels"]
