@@ -107,6 +107,9 @@ def estimate(g, device: str) -> Estimate:
     absorbed = 0
     soft_mult_adders = []
     acc_in_dsp = set()
+    merged = {}   # kept product -> the identical products measure() merged into it
+    for w, kept in m.shared_mults.items():
+        merged.setdefault(kept, []).append(w)
     for a, b, v in m.mults:
         blocks = mult_blocks(prof, a, b)
         n = g.nodes[v]
@@ -134,8 +137,11 @@ def estimate(g, device: str) -> Estimate:
                     lut += int(round(comp_pp * (a + b)))
                 else:
                     soft_mult_adders.append(a + b)
-        # registers the block may absorb: pipeline registers right after the product
-        pipe_out = [e["pipe"] for kd in g._succ[v].values() for e in kd.values()]
+        # registers the block may absorb: pipeline registers right after the product (and
+        # after the identical products merged into it, whose registers merge too: which of
+        # them measure() keeps must not matter)
+        pipe_out = [e["pipe"] for w in (v, *merged.get(v, ())) for kd in g._succ[w].values()
+                    for e in kd.values()]
         out_ok = True
         if prof.regs is not None and n.get("table") is None:
             c = int(n["coeff"])
