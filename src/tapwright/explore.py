@@ -271,7 +271,9 @@ def _check(c: Candidate, spec):
         excess["input_interval"] = e.input_interval - C
     clock_mhz = spec.clock / 1e6
     if e.fmax_mhz is not None and e.fmax_mhz < clock_mhz * (1 - 1e-9):
-        reasons.append(f"reaches about {e.fmax_mhz:.0f} MHz, below the {clock_mhz:g} MHz clock")
+        # one decimal where the rounded figure would equal the clock ("about 80, below 80")
+        got = f"{e.fmax_mhz:.0f}" if round(e.fmax_mhz) < clock_mhz else f"{e.fmax_mhz:.1f}"
+        reasons.append(f"reaches about {got} MHz, below the {clock_mhz:g} MHz clock")
         excess["clock_mhz"] = round(clock_mhz - e.fmax_mhz, 1)
     b = spec.budget
     used = {"dsp": e.dsp, "lut": e.lut, "ff": e.ff, "latency": e.latency}

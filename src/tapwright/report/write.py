@@ -303,7 +303,9 @@ def write_report(folder, *, spec, plan, fixed, sheet: dict, candidates=(), chose
                     f"{'s' if len(split) > 1 else ''} ({', '.join(sorted({str(r) for r in split.values()}))} "
                     f"per multiplexer, between its select levels)")
         if pl.get("registered_products"):
-            txt += f"; {pl['registered_products']} product(s) registered in front of the accumulator"
+            k = pl["registered_products"]
+            txt += (f"; {k} product{'s' if k > 1 else ''} registered in front of "
+                    f"{'their accumulators' if k > 1 else 'its accumulator'}")
         L.append(txt)
     L.append("")
     L.append("## Estimate")
