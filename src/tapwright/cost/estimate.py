@@ -279,6 +279,8 @@ def estimate(g, device: str) -> Estimate:
         l, c = adder_cells(prof, width)
         lut += l
         carry += c
+        if role == "acc":
+            lut += int(round(getattr(prof, "acc_clear_lut_per_bit", 0.0) * width))
     for width in soft_mult_adders:
         l, c = adder_cells(prof, width)
         lut += l
