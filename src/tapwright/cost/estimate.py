@@ -28,7 +28,7 @@ from dataclasses import dataclass, field
 
 from ..sfg.graph import edge_list, input_interval, operands
 from ..sfg.metrics import live_graph, measure, product_coeff_bits
-from ..sfg.transforms.pipeline import split_levels
+from ..sfg.transforms.pipeline import node_delays, split_levels
 from . import timing
 from .devices import absorbed_registers, adder_cells, get_profile, mult_blocks, shift_register_cells
 
@@ -61,20 +61,68 @@ class Estimate:
         return d
 
 
-def _mux_luts(prof, width: int, inputs: int) -> int:
+def _mux_luts(prof, width: int, inputs: int, *, deepest: bool = False) -> int:
     if inputs <= 1:
         return 0
-    # measured on multiplexer probes (profile fields and their sources)
+    # measured on multiplexer probes and inside designs (profile fields and their sources);
+    # a large multiplexer that is the design's deepest logic costs what the lone probe costs
     small = dict(getattr(prof, "mux_lut_per_bit", ()))
     if inputs in small:
         return int(round(small[inputs] * width))
-    per_input = getattr(prof, "mux_lut_per_input_bit", 0.0)
+    deep = deepest and inputs >= getattr(prof, "mux_deepest_min_inputs", 0) and \
+        getattr(prof, "mux_deepest_lut_per_input_bit", 0.0)
+    per_input = deep or getattr(prof, "mux_lut_per_input_bit", 0.0)
     if per_input:
         return int(round(per_input * (inputs - 1) * width))
     k = max(2, prof.lut_inputs)
     per = max(2, k - 2)   # data inputs one LUT multiplexes (LUT6: 4, LUT4: 2)
     luts_per_bit = math.ceil((inputs - 1) / (per - 1))
     return width * luts_per_bit
+
+
+def deepest_muxes(g, delays, hard, ratio: float) -> set:
+    """Multiplexers (without registers inside) on a combinational path at least ``ratio``
+    times as long as the longest path that passes through no multiplexer, with hard
+    products as path ends (their inputs end a path, their outputs start one: the view of
+    logic synthesis, which does not see into the blocks). Those are the design's deepest
+    logic, which synthesis maps for depth rather than area."""
+    nodes = g._node
+    nd = dict(node_delays(g, delays))
+    for v in hard:
+        nd[v] = 0.0
+    succ = {v: [] for v in nodes}
+    indeg = dict.fromkeys(nodes, 0)
+    for u, v, e in edge_list(g):
+        if e["z"] or e["pipe"] or u in hard or nodes[u]["kind"] == "acc" or nodes[v]["kind"] == "mux":
+            continue
+        succ[u].append(v)
+        indeg[v] += 1
+    order, ready = [], [v for v, k in indeg.items() if k == 0]
+    while ready:
+        v = ready.pop()
+        order.append(v)
+        for w in succ[v]:
+            indeg[w] -= 1
+            if indeg[w] == 0:
+                ready.append(w)
+    if len(order) != len(nodes):
+        return set()
+    muxes = [v for v in nodes if nodes[v]["kind"] == "mux" and not nodes[v].get("mux_regs")]
+    if not muxes:
+        return set()
+    arr, arr0 = {}, {}   # with the multiplexers' delays, and with none
+    pred_max, pred_max0 = dict.fromkeys(nodes, 0.0), dict.fromkeys(nodes, 0.0)
+    for v in order:
+        arr[v] = pred_max[v] + nd[v]
+        arr0[v] = pred_max0[v] + (0.0 if nodes[v]["kind"] == "mux" else nd[v])
+        for w in succ[v]:
+            pred_max[w] = max(pred_max[w], arr[v])
+            pred_max0[w] = max(pred_max0[w], arr0[v])
+    tail = {}
+    for v in reversed(order):
+        tail[v] = max((nd[w] + tail[w] for w in succ[v]), default=0.0)
+    other = max(arr0.values(), default=0.0)
+    return {v for v in muxes if arr[v] + tail[v] >= ratio * max(other, 1e-9)}
 
 
 def _table_luts(prof, entries: int, width: int) -> int:
@@ -295,10 +343,15 @@ def estimate(g, device: str) -> Estimate:
             (u, _), = operands(g, v)
             if g.nodes[u]["fmt"].bits > n["fmt"].bits + (g.nodes[u]["fmt"].frac - n["fmt"].frac):
                 lut += n["fmt"].bits
+    deep = set()
+    crit_ratio = getattr(prof, "mux_deepest_ratio", 0.0)
+    if crit_ratio and any(n >= getattr(prof, "mux_deepest_min_inputs", 0) for _, n, _ in m.muxes):
+        ends = hard | {u for u, k in m.shared_mults.items() if k in hard}
+        deep = deepest_muxes(g, delays, ends, crit_ratio)
     for width, inputs, v in m.muxes:
         r = g.nodes[v].get("mux_regs", 0)
         if not r:
-            lut += _mux_luts(prof, width, inputs)
+            lut += _mux_luts(prof, width, inputs, deepest=v in deep)
             continue
         # registers inside (pipeline mux_regs): each level a row of smaller multiplexers
         short = getattr(prof, "mux_split_lut_per_input_bit", 0.0)
