@@ -43,3 +43,38 @@ def test_bench_estimate_all_vs_one_synthesis(benchmark, tmp_path, device):
     benchmark.extra_info.update({"candidates": len(ex.candidates), "estimate_all_s": round(t_est, 3),
                                  "one_synthesis_s": round(t_syn, 2),
                                  "ratio": round(t_syn / max(t_est, 1e-6), 1)})
+
+
+SPECS = sorted(p.stem for p in (Path(__file__).parent.parent / "specs").glob("*.toml"))
+
+
+@pytest.mark.parametrize("name", SPECS)
+def test_bench_every_example_on_ecp5(benchmark, tmp_path, name):
+    """The same ratio for every example spec on ECP5, chains included (what `plan`
+    explores): the small filters are the hard case for the goal, the long multistage ones
+    the hard case in absolute time. Timing only: skipped without --benchmark-enable
+    (each synthesizes a design; the largest take about half a minute)."""
+    from tapwright.explore import explore_all
+
+    if benchmark.disabled:
+        pytest.skip("timing only (--benchmark-enable)")
+    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / f"{name}.toml"),
+                               device="ecp5")
+    res = plan(spec)
+    ex = benchmark.pedantic(explore_all, args=(spec, res.design.fixed, res.chains or []),
+                            kwargs={"name": "bench"}, rounds=1, iterations=1)
+    t_est = math.inf
+    for i in range(3):   # best of three, each with fresh structural cache keys
+        t0 = time.perf_counter()
+        explore_all(spec, res.design.fixed, res.chains or [], name=f"again{i}")
+        t_est = min(t_est, time.perf_counter() - t0)
+    best = ex.recommended or ex.closest
+    build_design(res, structure=best.label, out=tmp_path / "d", force=True)
+    t0 = time.perf_counter()
+    out = synth_folder(tmp_path / "d", device="ecp5")
+    t_syn = time.perf_counter() - t0
+    assert out["synth"]["dsp"] == out["estimate"]["dsp"]
+    benchmark.extra_info.update({"spec": name, "candidates": len(ex.candidates),
+                                 "structure": best.label, "estimate_all_s": round(t_est, 3),
+                                 "one_synthesis_s": round(t_syn, 2),
+                                 "ratio": round(t_syn / max(t_est, 1e-6), 1)})

@@ -31,6 +31,8 @@ candidates reach it.
 """
 from __future__ import annotations
 
+import functools
+import gc
 import math
 from dataclasses import dataclass, field
 
@@ -306,6 +308,25 @@ def _pareto(cands):
         c.pareto = not any(all(q[j] <= p[j] for j in range(4)) and q != p for q in pts)
 
 
+def _gc_paused(fn):
+    """Run ``fn`` with Python's cyclic garbage collector paused. Building and estimating
+    candidates allocates hundreds of thousands of small dicts; each allocation burst
+    would start a collection that walks every live graph (the objects made here are
+    freed by reference counting; the collector runs again afterwards). audio_dec64 on
+    ECP5: about 1.6 s with collections, 1.05 s without."""
+    @functools.wraps(fn)
+    def run(*args, **kw):
+        was = gc.isenabled()
+        gc.disable()
+        try:
+            return fn(*args, **kw)
+        finally:
+            if was:
+                gc.enable()
+    return run
+
+
+@_gc_paused
 def explore(fixed: FixedDesign, spec, *, name: str | None = None) -> Exploration:
     """Estimate every candidate of one design; rank; pick the recommendation (or the closest miss)."""
     return _rank(spec, [(fixed, r, None) for r in recipes(fixed, spec, name=name)], fixed, name=name)
@@ -437,6 +458,7 @@ def chain_recipes(fixed: FixedDesign, spec, tag: str, *, name: str | None = None
     return out
 
 
+@_gc_paused
 def explore_all(spec, single_fixed: FixedDesign | None, chains=(), *, name: str | None = None) -> Exploration:
     """Single-stage candidates and every chain's candidates, ranked together."""
     sources = []

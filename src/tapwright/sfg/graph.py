@@ -162,8 +162,9 @@ def _range_of(g, v, ranges):
         (u, _), = ops
         fr = ranges[u][2]
         lo = hi = 0
+        memo: dict = {}   # cone node -> its operands (a multiplexer's by port)
         for step in range(int(n["steps"])):
-            a, b = _range_at_step(g, u, step, ranges)
+            a, b = _range_at_step(g, u, step, ranges, memo)
             lo, hi = lo + a, hi + b
         return lo, hi, fr
     if k == "quant":
@@ -193,27 +194,34 @@ def _range_of(g, v, ranges):
     raise GraphError(f"unknown kind {k}")
 
 
-def _range_at_step(g, v, step, ranges):
-    """Range of a time-shared cone node at one schedule step (operands fixed by the step)."""
-    n = g.nodes[v]
+def _range_at_step(g, v, step, ranges, memo=None):
+    """Range of a time-shared cone node at one schedule step (operands fixed by the step).
+    ``memo`` keeps each node's operands across the steps of one accumulator."""
+    n = g._node[v]
     k = n["kind"]
     fr = ranges[v][2]
+    if memo is None:
+        memo = {}
+    ops = memo.get(v)
+    if ops is None:
+        ops = memo[v] = ({d["port"]: u for u, d in operands(g, v)} if k == "mux"
+                         else operands(g, v))
     if k == "mux":
         port = n["select"][step]
         if port == n.get("zero_port"):
             return 0, 0
-        u = next(u for u, d in operands(g, v) if d["port"] == port)
+        u = ops[port]
         s = fr - ranges[u][2]
         return ranges[u][0] << s, ranges[u][1] << s
     if k == "mul" and n.get("table") is not None:
-        (u, _), = operands(g, v)
-        lo, hi = _range_at_step(g, u, step, ranges)
+        (u, _), = ops
+        lo, hi = _range_at_step(g, u, step, ranges, memo)
         c = int(n["table"][step])
         return min(lo * c, hi * c), max(lo * c, hi * c)
     if k == "add":
         lo = hi = 0
-        for u, d in operands(g, v):
-            ulo, uhi = _range_at_step(g, u, step, ranges)
+        for u, d in ops:
+            ulo, uhi = _range_at_step(g, u, step, ranges, memo)
             s = d["shift"] + fr - ranges[u][2]
             a, b = (ulo << s) * d["sign"], (uhi << s) * d["sign"]
             lo, hi = lo + min(a, b), hi + max(a, b)
@@ -387,8 +395,9 @@ def _condensed_order(g) -> list:
     comps: dict = {}
     for v, c in cond.graph["mapping"].items():
         comps.setdefault(c, []).append(v)
+    first = {c: min(map(str, m)) for c, m in comps.items()}
     return [sorted(comps[c], key=str)
-            for c in nx.lexicographical_topological_sort(cond, key=lambda c: min(map(str, comps[c])))]
+            for c in nx.lexicographical_topological_sort(cond, key=first.__getitem__)]
 
 
 def rate_divisors(g) -> dict:
