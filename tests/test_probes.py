@@ -464,3 +464,21 @@ def test_ecp5_deepest_multiplexers_cost_what_the_probe_costs(tmp_path):
     assert r["dsp"] == 2
     assert 0.8 <= est / cone <= 1.2, (cone, est)
     assert cheap / cone < 0.5, (cone, cheap)
+
+
+@pytest.mark.parametrize("n", [4, 7])
+def test_ecp5_word_sum_is_a_compressor_as_wide_as_the_sum(tmp_path, n):
+    """The adder tree after a time-shared design's accumulators (WordSumProbe: n registered
+    24-bit words, balanced tree): synth_ecp5 makes one CCU2C chain and n - 2 rows of LUT4
+    full adders as wide as the sum (measured here: n = 4: 120 LUT4, 13 CCU2C; n = 7: 322 LUT4,
+    14 CCU2C), the profile's acc_tree_lut_per_bit (2.3) per row and bit of the root."""
+    from tapwright.cost.calibrate_delays import WordSumProbe
+    r = syn(tmp_path, WordSumProbe(n, 24), "ecp5", f"sum{n}")
+    root_bits = 24 + (n - 1).bit_length()
+    est = (n - 2) * root_bits * dv.get_profile("ecp5").acc_tree_lut_per_bit
+    assert r["carry"] <= 14
+    assert 0.85 <= est / r["lut"] <= 1.15, (r["cells"], est)
+    # the rule for product trees (2.0 per bit of each non-root adder's own width: two
+    # 25-bit first-level adders at n = 4) is low here
+    if n == 4:
+        assert 2.0 * (25 + 25) / r["lut"] < 0.85

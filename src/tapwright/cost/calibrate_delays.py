@@ -184,6 +184,39 @@ class MulAddTreeProbe(wiring.Component):
         return m
 
 
+class WordSumProbe(wiring.Component):
+    """Registered sum of ``n`` registered ``bits``-wide words by a balanced tree of
+    two-input adders, each sum its own signal: the adder tree after the accumulators of a
+    time-shared structure, as the RTL lowering writes it."""
+
+    def __init__(self, n=4, bits=24):
+        self.n, self.bits = n, bits
+        super().__init__({"d": In(unsigned(n * bits)), "y": Out(signed(bits + n.bit_length()))})
+
+    def elaborate(self, platform):
+        m = Module()
+        level = []
+        for i in range(self.n):
+            r = Signal(signed(self.bits), name=f"w{i}", reset_less=True)
+            m.d.sync += r.eq(self.d[i * self.bits:(i + 1) * self.bits])
+            level.append(r)
+        k = 0
+        while len(level) > 1:
+            nxt = []
+            for a, b in zip(level[0::2], level[1::2]):
+                s = Signal(signed(max(len(a), len(b)) + 1), name=f"s{k}")
+                k += 1
+                m.d.comb += s.eq(a + b)
+                nxt.append(s)
+            if len(level) % 2:
+                nxt.append(level[-1])
+            level = nxt
+        ry = Signal(self.y.shape(), name="y_r", reset_less=True)
+        m.d.sync += ry.eq(level[0])
+        m.d.comb += self.y.eq(ry)
+        return m
+
+
 class MulAddProbe(wiring.Component):
     """Registered ``y = a * b + c``: the multiply-then-add path of a MAC/FIR tap.
 

@@ -196,6 +196,10 @@ class DeviceProfile:
     mux_deepest_ratio: float = 0.0
     mux_deepest_min_inputs: int = 0
     mux_deepest_lut_per_input_bit: float = 0.0
+    #: LUT cells per bit of the root's width for each compressor row of an adder tree whose
+    #: leaves are accumulators (and other registers, no products); 0: such trees follow
+    #: tree_compressor_lut_per_bit
+    acc_tree_lut_per_bit: float = 0.0
 
     @property
     def cell_classes(self) -> dict:
@@ -363,20 +367,22 @@ ECP5 = DeviceProfile(
          "a PFUMX make a 4:1 multiplexer in one slice, L6MUX21 widens it]; [C: calibration run: the "
          "Yosys netlists of time-shared designs hold PFUMX and L6MUX21 cells]"),
         ("mux_lut_per_bit", "[C: in-design cones (2026-12-03): LUT4 cells in the fan-in of the MULT18X18D inputs up to the flip-flops (Yosys 'select t:MULT18X18D %ci*:-TRELLIS_FF[Q] t:LUT4 %i' on the calibration run's synth_ecp5 netlists) less the estimated coefficient tables: adc_halfband timeshared k3, eight 14-bit 3:1: 1.63 LUT4 per bit; sensor_lowpass timeshared k3, fourteen 12-bit 3:1: 1.67; adc_halfband timeshared k4, six 14-bit 4:1: 2.69]; [C: MuxProbe (python -m tapwright.cost.calibrate_delays --mux --device ecp5), the multiplexer alone between registers: 2: 1.12, 3: 2.25, 4: 4.19; alone it is the design's deepest logic and Yosys' ABC9 maps it for depth, inside a design it mostly is not]"),
-        ("mux_lut_per_input_bit", "[C: same in-design cones: rx_chan_dec4 chain:hb+fir2/k3.8, ten 19-bit 8:1 and two 16-bit 3:1, 1087 LUT4: 0.71 LUT4 per bit per extra input; audio_dec64 chain:cic6x16+comp4/k1.93, two 10-bit 93:1, 1605 LUT4 less 144 for the table: 0.79; audio_dec64 chain:fir8+fir4+fir2/k20.15.50, 10-bit 50:1, 9-bit 15:1 and 4-bit 20:1 pairs, 1432 less 147: 0.93]; [C: probes of the same multiplexers alone cost 1.9-2.9 (MuxProbe n = 9..93; a throwaway probe of two 19:1 or two 50:1 multiplexers with pre-adder, product and accumulator, not in the repo: 2.39 and 1.99), and so do multiplexers that are a design's deepest logic (mux_deepest_*): servo_diff timeshared+symmetric/k19 unpipelined on ECP5, two 20-bit 19:1 multiplexers and their pre-adder as the longest logic between registers and multipliers, 1882 LUT4 in the cone: 2.6]"),
+        ("mux_lut_per_input_bit", "[C: same in-design cones, median of three: rx_chan_dec4 chain:hb+fir2/k3.8, ten 19-bit 8:1 and two 16-bit 3:1, 1087 LUT4: 0.71 LUT4 per bit per extra input; audio_dec64 chain:cic6x16+comp4/k1.93, two 10-bit 93:1, 1605 LUT4 less 144 for the table: 0.79; audio_dec64 chain:fir8+fir4+fir2/k20.15.50, 10-bit 50:1, 9-bit 15:1 and 4-bit 20:1 pairs, 1432 less 147: 0.93]; [C: probes of the same multiplexers alone cost 1.9-2.9 (MuxProbe n = 9..93; a throwaway probe of two 19:1 or two 50:1 multiplexers with pre-adder, product and accumulator, not in the repo: 2.39 and 1.99), and so do multiplexers that are a design's deepest logic (mux_deepest_*): servo_diff timeshared+symmetric/k19 unpipelined on ECP5, two 20-bit 19:1 multiplexers and their pre-adder as the longest logic between registers and multipliers, 1882 LUT4 in the cone: 2.6]"),
         ("mux_deepest_ratio", "[C: paths through the multiplexers against the longest path through none, hard products as path ends (cost.estimate.deepest_muxes), on designs whose multiplexer cones were counted (2026-12-03): expensive ones at 1.25 to 2.4 (servo_diff k19 and k10, accel_dec4 k18 with and without pipelining), cheap ones at 0.44 to 1.02 (rx_chan_dec4 k3.8, audio_dec64 CIC compensator, adc_halfband k3 and k4, sensor_lowpass k3); accel_dec4 k12 at 1.24 is in between (about 1.0 per bit per input); audio_dec64 k20.15.50 at 1.7 is cheap against the rule (0.93)]"),
         ("mux_deepest_min_inputs", "[C: rx_chan_dec4 hb+fir2/k3.8/p2.58: pipelined to 2.58 ns, its 19-bit 8:1 multiplexers are the longest paths (ratio 2.6) and still cost 95 LUT4 each (5 per bit), against 175 for the same multiplexer alone (MuxProbe-like, throwaway)]"),
         ("mux_deepest_lut_per_input_bit", "[C: MuxProbe median over n = 9..32 (2.29, see mux_lut_per_input_bit of the earlier profile in git history, 2026-12-02); in-design cones of the deepest ones: servo_diff k19 unpipelined 2.6, accel_dec4 k18/p13.1 2441 LUT4 for four 16-bit 18:1 with their pre-adders: 2.24, servo_diff k10 (20-bit 10:1 and 9:1) about 1.75]"),
+        ("acc_tree_lut_per_bit", "[C: WordSumProbe of tapwright.cost.calibrate_delays (n registered 24-bit words, balanced tree; tests/test_probes.py): n = 3, 4, 5, 7: 48, 120, 187, 322 LUT4 and one CCU2C chain, 2.0 to 2.4 LUT4 per bit of the sum per compressor row (n - 2 rows); the time-shared designs' accumulator trees: adc_halfband k3 0.76x and sensor_lowpass k3 0.84x with the product-tree rule, 0.81x and 0.91x with this one (calibration run of 2026-12-03)]"),
         ("acc_clear_lut_per_bit", "[C: in-design: LUT4 cells whose only readers are accumulator registers, adc_halfband timeshared k3 57 for 111 accumulator bits, sensor_lowpass timeshared k3 70 for 155: about 0.5 (CCU2C takes no select); an accumulator alone (28-bit, cleared every 7th step) costs about 1 LUT4 per bit beside its 14 CCU2C]"),
     ),
     tree_compressor_lut_per_bit=2.0,
     mux_inputs_per_level=4,
     mux_lut_per_bit=((2, 1.12), (3, 1.65), (4, 2.7)),
-    mux_lut_per_input_bit=0.85,
+    mux_lut_per_input_bit=0.75,
     mux_split_lut_per_input_bit=0.8,
     acc_clear_lut_per_bit=0.5,
     mux_deepest_ratio=1.2,
     mux_deepest_min_inputs=9,
+    acc_tree_lut_per_bit=2.3,
     mux_deepest_lut_per_input_bit=2.29,
 )
 

@@ -318,11 +318,38 @@ def estimate(g, device: str) -> Estimate:
             if not any(w in under and any(e["pipe"] == 0 and e["z"] == 0 for e in kd.values())
                        for w, kd in g._succ[v].items()):
                 roots.add(v)
+    # a tree whose leaves are accumulators (and other registers, no products): each
+    # compressor row is as wide as the root (profile field acc_tree_lut_per_bit)
+    reg_tree = getattr(prof, "acc_tree_lut_per_bit", 0.0)
+    root_of = {}
+    reg_roots = set()
+    if reg_tree and roots:
+        def joined(v, w):
+            return any(e["pipe"] == 0 and e["z"] == 0 for e in g._succ[v][w].values())
+        members = {}
+        for v in under:
+            w, seen = v, set()
+            while w not in roots and w not in seen:
+                seen.add(w)
+                w = next((x for x in g._succ[w] if x in under and joined(w, x)), w)
+            if w in roots:
+                root_of[v] = w
+                members.setdefault(w, []).append(v)
+        for r, vs in members.items():
+            leaves = [(u, v) for v in vs for u in g._pred[v] if u not in vs]
+            if any(g.nodes[u]["kind"] == "acc" for u, _ in leaves) and \
+                    all(g.nodes[u]["kind"] == "acc" or (not joined(u, v) and u not in hard)
+                        for u, v in leaves):
+                reg_roots.add(r)
     for width, role, v in m.adders:
         if v in acc_in_dsp or v in in_block:
             continue
         if comp and est.dsp and v in under and v not in roots:
-            lut += int(round(comp * width))
+            r = root_of.get(v)
+            if r in reg_roots:
+                lut += int(round(reg_tree * g.nodes[r]["fmt"].bits))
+            else:
+                lut += int(round(comp * width))
             continue
         l, c = adder_cells(prof, width)
         lut += l
