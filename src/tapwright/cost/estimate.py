@@ -82,7 +82,7 @@ def _mux_luts(prof, width: int, inputs: int, *, deepest: bool = False) -> int:
 
 def deepest_muxes(g, delays, hard, ratio: float) -> set:
     """Multiplexers (without registers inside) on a combinational path at least ``ratio``
-    times as long as the longest path that passes through no multiplexer, with hard
+    times as long as the longest path when multiplexers are counted as no delay, with hard
     products as path ends (their inputs end a path, their outputs start one: the view of
     logic synthesis, which does not see into the blocks). Those are the design's deepest
     logic, which synthesis maps for depth rather than area."""
@@ -303,6 +303,11 @@ def estimate(g, device: str) -> Estimate:
     comp = getattr(prof, "tree_compressor_lut_per_bit", 0.0)
     roots = set()
     under = set()   # tree adders the compressor rule covers (see tree_compressor_scope)
+    parent = {}     # tree adder -> the tree adder it feeds without a register (None: a root)
+
+    def joined(v, w):
+        return any(e["pipe"] == 0 and e["z"] == 0 for e in g._succ[v][w].values())
+
     scope = getattr(prof, "tree_compressor_scope", "any")
     if comp and est.dsp:
         tree = {v for _, role, v in m.adders if role == "tree"}
@@ -311,12 +316,12 @@ def estimate(g, device: str) -> Estimate:
             for v in comp_nodes:
                 if v in tree and (scope == "any" or all(u in hard or u in under for u in g.predecessors(v))):
                     under.add(v)
+        # a tree ends where its sum is registered: Yosys merges only adders joined
+        # without a register (calibration run: adc_halfband halfband+polyphase/p1.5 on
+        # ECP5, every tree adder pipelined, 264 CCU2C and 6 LUT4)
         for v in under:
-            # a tree ends where its sum is registered: Yosys merges only adders joined
-            # without a register (calibration run: adc_halfband halfband+polyphase/p1.5 on
-            # ECP5, every tree adder pipelined, 264 CCU2C and 6 LUT4)
-            if not any(w in under and any(e["pipe"] == 0 and e["z"] == 0 for e in kd.values())
-                       for w, kd in g._succ[v].items()):
+            parent[v] = next((w for w in g._succ[v] if w in under and joined(v, w)), None)
+            if parent[v] is None:
                 roots.add(v)
     # a tree whose leaves are accumulators (and other registers, no products): each
     # compressor row is as wide as the root (profile field acc_tree_lut_per_bit)
@@ -324,17 +329,13 @@ def estimate(g, device: str) -> Estimate:
     root_of = {}
     reg_roots = set()
     if reg_tree and roots:
-        def joined(v, w):
-            return any(e["pipe"] == 0 and e["z"] == 0 for e in g._succ[v][w].values())
         members = {}
         for v in under:
-            w, seen = v, set()
-            while w not in roots and w not in seen:
-                seen.add(w)
-                w = next((x for x in g._succ[w] if x in under and joined(w, x)), w)
-            if w in roots:
-                root_of[v] = w
-                members.setdefault(w, []).append(v)
+            r = v
+            while parent[r] is not None:   # joined without registers: no cycle
+                r = parent[r]
+            root_of[v] = r
+            members.setdefault(r, []).append(v)
         for r, vs in members.items():
             leaves = [(u, v) for v in vs for u in g._pred[v] if u not in vs]
             if any(g.nodes[u]["kind"] == "acc" for u, _ in leaves) and \
