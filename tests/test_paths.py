@@ -86,3 +86,49 @@ def test_split_multiplexer_clock_against_nextpnr(tmp_path):
     est, got = syn["estimate"]["fmax_mhz"], syn["pnr"]["fmax_mhz"]
     assert abs(est / got - 1) <= 0.25, (pick.label, est, got)
     assert got >= 95.0, (pick.label, got)
+
+
+def test_ecp5_multiplier_net_spread_is_the_fit_of_the_measured_paths():
+    # Outside reference: nextpnr-ecp5 critical paths of calibration designs (the points in
+    # devices.CALIBRATED, each the extra routing into and out of a MULT18X18D against the
+    # one-multiplier probe, by the number of blocks in the design)
+    import math
+
+    from tapwright.cost.devices import CALIBRATED, get_profile
+
+    pts = CALIBRATED["ecp5"]["dsp_spread_points"]
+    x = [math.sqrt(n) - 1 for n, _ in pts]
+    c = sum(xi * y for xi, (_, y) in zip(x, pts)) / sum(xi * xi for xi in x)
+    assert get_profile("ecp5").delays.dsp_spread_ns == pytest.approx(c, abs=0.005)
+    for xc in ("xc7", "ice40"):
+        assert get_profile(xc).delays.dsp_spread_ns == 0.0
+
+
+def test_ecp5_products_slow_down_with_the_blocks_a_design_takes(tiny_ecp5):
+    # the same product node costs more in a graph with more hard products, and a product
+    # alone in its design costs what the probe measured (spread 0 at one block)
+    import math
+
+    from tapwright.cost.devices import get_profile
+    from tapwright.sfg.graph import copy_graph
+    from tapwright.sfg.metrics import is_free_coeff
+
+    _, res = tiny_ecp5
+    f = delay_function("ecp5")
+    d = get_profile("ecp5").delays
+    c = next(c for c in res.exploration.candidates if c.estimate.dsp >= 2 and "timeshared" not in c.label)
+    g = realize(c.fixed or res.design.fixed, c.recipe, delays=f)
+    hard = [v for v, n in g._node.items() if n["kind"] == "mul" and n.get("table") is None
+            and not is_free_coeff(n["coeff"])]
+    assert len(hard) >= 2
+    v = hard[0]
+    fan = max(len(g._succ[u]) for u in g._pred[v])
+    fanout = d.fanout_ns_per_doubling * math.log2(fan) if fan > 1 else 0.0
+    h = copy_graph(g)
+    for w in hard[1:]:
+        h.nodes[w]["coeff"] = 0          # free products: one block left in the design
+    t_one = f(h, v)
+    t_all = f(g, v)
+    blocks = c.estimate.dsp
+    spread = d.dsp_spread_ns * (math.sqrt(blocks) - 1)
+    assert t_all - t_one == pytest.approx(max(spread, fanout) - fanout, abs=1e-6)

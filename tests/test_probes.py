@@ -281,6 +281,53 @@ def test_xc7_pre_adder_is_packed_into_the_dsp(tmp_path):
     assert r["carry"] > 0 and dv.get_profile("ecp5").pre_adder_bits == 0
 
 
+def _dsp_params(netlist_path: Path, name: str) -> list[str]:
+    """``name`` parameter of every DSP48E1 in a write_json netlist."""
+    net = json.loads(Path(netlist_path).read_text())
+    return [c["parameters"].get(name) for m in net["modules"].values()
+            for c in m["cells"].values() if c["type"] == "DSP48E1"]
+
+
+def test_xc7_pre_adder_stays_in_fabric_when_the_coefficient_is_wider(tmp_path):
+    """Yosys' mul2dsp puts the wider operand on the DSP48E1's A port, and xilinx_dsp packs
+    a pre-adder only there [S: Yosys techlibs/common/mul2dsp.v, passes/pmgen/xilinx_dsp.pmg]:
+    a 9-bit pre-adder sum times a 17-bit coefficient keeps its adder in the fabric."""
+    from tapwright.cost.calibrate_delays import PreAddMulProbe
+    r = syn(tmp_path, PreAddMulProbe(8, 54321), "xc7", "preadd_narrow", netlist_out="net.json")
+    assert r["dsp"] == 1 and r["carry"] >= 2 and r["lut"] >= 8
+    assert _dsp_params(r["netlist"], "USE_DPORT") == ["FALSE"]
+    r = syn(tmp_path, PreAddMulProbe(16, 12345), "xc7", "preadd_wide", netlist_out="net.json")
+    assert _dsp_params(r["netlist"], "USE_DPORT") == ["TRUE"]
+    assert dv.get_profile("xc7").pre_adder_on_wider
+
+
+def test_xc7_pre_adders_of_a_design_are_the_ones_on_the_wide_port(tmp_path):
+    """The estimate's packed pre-adders are the ones synth_xilinx packs: adc_halfband
+    halfband+polyphase has 12 symmetric pairs, and one coefficient (17 bits) is wider than
+    its 15-bit pair sum; 11 DSP48E1 with USE_DPORT (calibration netlist and here)."""
+    import dataclasses
+
+    from tapwright.cost.estimate import pre_adders_in_blocks
+    from tapwright.cost.timing import delay_function
+    from tapwright.plan import plan
+    from tapwright.rtl.emit import emit_verilog
+    from tapwright.sfg.metrics import live_graph, measure
+    from tapwright.sfg.recipe import realize
+    from tapwright.spec import load_spec
+
+    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / "adc_halfband.toml"),
+                               device="xc7")
+    cand = plan(spec).exploration.by_label()["halfband+polyphase"]
+    g = live_graph(realize(cand.fixed, cand.recipe, name=spec.name))
+    prof = dv.get_profile("xc7")
+    m = measure(g, delay_function("xc7"))
+    hard = {v for a, b, v in m.mults if dv.mult_blocks(prof, a, b) >= 1}
+    packed = pre_adders_in_blocks(g, prof, m.adders, hard)
+    r = synthesize(emit_verilog(g, spec.name), spec.name, "xc7", workdir=tmp_path / "adc",
+                   netlist_out="net.json")
+    assert _dsp_params(r["netlist"], "USE_DPORT").count("TRUE") == len(packed) == 11
+
+
 @pytest.mark.parametrize("n", [2, 4, 8])
 def test_xc7_tree_post_adders(tmp_path, n):
     from tapwright.cost.calibrate_delays import MulAddTreeProbe

@@ -168,6 +168,17 @@ def render_plan(result: PlanResult) -> str:
         fit = part_fit(spec.device, c.estimate)
         if fit:
             lines.append(fit)
+        from .cost.accuracy import clock_error, clock_margin_note
+        note = clock_margin_note(spec.device, spec.clock, c.estimate.fmax_mhz, c.label)
+        if note:
+            lines.append(note)
+            err = clock_error(spec.device)
+            safer = next((x for x in ex.candidates if x.feasible and x.estimate.fmax_mhz
+                          and x.estimate.fmax_mhz >= spec.clock / 1e6 * (1 + err)), None)
+            if safer is not None:
+                rank = ex.candidates.index(safer) + 1
+                lines.append(f"  with more margin: {safer.label} (rank {rank}, "
+                             f"{safer.estimate.fmax_mhz:.0f} MHz estimated)")
         lines.append(f"build it:    tapwright build {spec.path} --structure {c.label}")
     else:
         c = ex.closest

@@ -46,3 +46,28 @@ def accuracy_line(device: str) -> str:
         line += (" Its clock figure is not checked against place and route of whole designs "
                  "(README: How accurate the estimates are).")
     return line
+
+
+def clock_error(device: str) -> float | None:
+    """Median error of the clock estimate on ``device`` against place and route (None when
+    the last calibration run did not place and route that family)."""
+    c = load_summary().get("devices", {}).get(device, {}).get("fmax")
+    return float(c["median"]) if c and c.get("median") is not None else None
+
+
+def clock_margin_note(device: str, clock_hz: float, fmax_mhz, label: str = "") -> str:
+    """A warning when an estimated clock meets ``clock_hz`` by less than the median error of
+    the clock estimate on ``device`` ('' otherwise): the design may well miss the clock
+    after place and route."""
+    err = clock_error(device)
+    if not err or not fmax_mhz or not clock_hz:
+        return ""
+    target = clock_hz / 1e6
+    margin = fmax_mhz / target - 1
+    if margin < 0 or margin >= err:
+        return ""
+    who = f"{label} is" if label else "the design is"
+    return (f"clock margin: {who} estimated at {fmax_mhz:.1f} MHz for the {target:g} MHz clock, "
+            f"{_pct(margin) if margin >= 0.005 else 'under 1 %'} above it, inside the median error of "
+            f"the clock estimate on {device} ({_pct(err)}, docs/accuracy.md): place and route it "
+            f"(tapwright synth DIR --pnr) before relying on the clock.")

@@ -134,6 +134,10 @@ class Delays:
     fanout_ns_per_doubling: float = 0.0     # extra net delay per doubling of a driver's fan-out
     # the node kinds whose operand nets pay it (None: every kind)
     fanout_load_kinds: Optional[tuple] = None
+    # extra delay of the nets into and out of a hard product, per (sqrt(blocks in the
+    # design) - 1): the more blocks a design takes, the farther its fabric logic sits from
+    # them (charged as the larger of this and the fan-out term, not both)
+    dsp_spread_ns: float = 0.0
 
     def adder_ns(self, width: int) -> float:
         """Register-to-register delay of a ``width``-bit carry-chain adder."""
@@ -166,6 +170,9 @@ class DeviceProfile:
     tree_compressor_lut_per_bit: float = 0.0
     #: widest pre-adder (in front of a hard product) the block takes in; 0 = fabric
     pre_adder_bits: int = 0
+    #: the pre-adder is taken in only where its sum is at least as wide as the coefficient
+    #: (synthesis puts the wider operand on the port that has the pre-adder)
+    pre_adder_on_wider: bool = False
     #: each hard product takes one adder of the tree it feeds as the block's post-adder
     #: (cascade or C port), up to ``regs.post_adder_bits`` wide
     tree_post_adders: bool = False
@@ -299,6 +306,7 @@ XC7 = DeviceProfile(
         ("adder_lut_per_bit", "[C: adder probes, measured here with " + _YOSYS + "]"),
         ("pre_adder_bits", "[S: UG479 DSP48E1: 25-bit A/D pre-adder]; [C: probe PreAddMulProbe: "
          "registered (a + d) * c, 16-bit a, d -> 1 DSP48E1 and no other cell (USE_DPORT)]"),
+        ("pre_adder_on_wider", "[S: Yosys techlibs/common/mul2dsp.v (the wider operand on A) and passes/pmgen/xilinx_dsp.pmg (preAdd matched on the A port only)]; [C: PreAddMulProbe 8-bit data and a 17-bit coefficient: no USE_DPORT, the pre-adder in fabric (tests/test_probes.py); calibration netlists: audio_dec64 fir8+fir4+fir2 10 of 84 pre-adders packed, adc_halfband halfband+polyphase 11 of 12, each the ones whose sum is at least as wide as the coefficient]"),
         ("tree_post_adders", "[C: probe MulAddTreeProbe, sum of n registered constant products: "
          "n = 2, 4, 8 -> n DSP48E1 and n/2 - 1 fabric adders (LUT2 + CARRY4): each first-level "
          "adder is a DSP post-adder]"),
@@ -309,6 +317,7 @@ XC7 = DeviceProfile(
         ("mux_lut_per_input_bit", "[C: same probes, n = 9, 10, 12, 16, 20, 24, 32: median of LUT per bit / (n - 1); LUT per bit by n: 9: 5.12, 10: 6.06, 12: 6.06, 16: 7.06, 20: 7.06, 24: 11.56, 32: 14.19]"),
     ),
     pre_adder_bits=25,
+    pre_adder_on_wider=True,
     tree_post_adders=True,
     tree_compressor_lut_per_bit=2.0,
     tree_compressor_scope="products",
@@ -473,6 +482,17 @@ CALIBRATED = {
         # shift-add, 97 MHz placed; 53 MHz estimated with the term on every load)]
         "fanout_ns_per_doubling": 0.8,
         "fanout_load_kinds": ("mul", "mux"),
+        # [C: nextpnr critical paths of calibration designs (2026-12-03, LFE5U-85F, through
+        # the serial shell; python -m tapwright.synth.paths): the nets into and out of a
+        # MULT18X18D on the path take longer than in MulProbe (2.545 ns for both) by, per
+        # (MULT18X18D in the design, extra ns): adc_halfband halfband+polyphase (12, 1.78),
+        # accel_dec4 fir2+hb/p13.1 (27, 2.30), rx_chan_dec4 hb+fir2 (83, 4.17 and 3.24, two
+        # products on the path), audio_dec64 fir8+fir4+fir2/p17.8 (88, 6.38); least squares
+        # of extra = c * (sqrt(n) - 1): c = 0.566. servo_diff transposed (72) has no product
+        # on its placed critical path: its broadcast input's fan-out term (0.8 ns per
+        # doubling) already covers the spread, so the larger of the two is charged]
+        "dsp_spread_ns": 0.566,
+        "dsp_spread_points": ((12, 1.78), (27, 2.30), (83, 4.17), (83, 3.24), (88, 6.38)),
         "notes": "mult: 18x18 MULT18X18D between fabric FFs (Yosys absorbs no register on ECP5); "
                  "mult_add: 18x18 product + 40-bit add, registered after the add",
         "source": "[C: nextpnr-ecp5 0.11.1 on LFE5U-85F (--85k), probes AdderProbe 8..48, "
@@ -518,7 +538,8 @@ def _with_delays(p: DeviceProfile) -> DeviceProfile:
                source=cal["source"], mult_comb_ns=cal.get("mult_comb_ns"),
                mult_verified=bool(cal.get("mult_verified")), notes=cal.get("notes", ""),
                fanout_ns_per_doubling=cal.get("fanout_ns_per_doubling", 0.0),
-               fanout_load_kinds=cal.get("fanout_load_kinds"))
+               fanout_load_kinds=cal.get("fanout_load_kinds"),
+               dsp_spread_ns=cal.get("dsp_spread_ns", 0.0))
     return replace(p, delays=d)
 
 

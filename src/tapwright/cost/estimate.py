@@ -131,6 +131,37 @@ def _table_luts(prof, entries: int, width: int) -> int:
     return width * math.ceil(entries / per)
 
 
+def pre_adders_in_blocks(g, prof, adders, hard) -> set:
+    """The pre-adders (``measure().adders`` entries of role ``preadd``) that the hard
+    blocks take in, per the profile: operands straight from registers (delay-line taps,
+    as in the probe; a pre-adder behind the multiplexers of a folded structure stays in
+    fabric, calibration run: time-shared xc7 designs), at most ``pre_adder_bits`` wide,
+    read only by hard products; with ``pre_adder_on_wider``, only where the sum is at
+    least as wide as every coefficient it is multiplied by. Yosys' mul2dsp puts the wider
+    operand on the DSP48E1's A port and xilinx_dsp packs a pre-adder only on A
+    [S: Yosys techlibs/common/mul2dsp.v and passes/pmgen/xilinx_dsp.pmg, preAdd indexed on
+    sigA]; [C: synth_xilinx netlists of the calibration run: audio_dec64 fir8+fir4+fir2,
+    10 of 84 pre-adders packed (USE_DPORT), the 10 whose sum is at least as wide as the
+    coefficient; adc_halfband halfband+polyphase/p2.4, 11 of 12]."""
+    pre_bits = getattr(prof, "pre_adder_bits", 0)
+    out = set()
+    if not pre_bits:
+        return out
+    wide_port = getattr(prof, "pre_adder_on_wider", False)
+    for width, role, v in adders:
+        if role != "preadd" or width > pre_bits:
+            continue
+        succ = list(g.successors(v))
+        if not succ or not all(w in hard for w in succ):
+            continue
+        if any(g.nodes[u]["kind"] == "mux" for u in g.predecessors(v)):
+            continue
+        if wide_port and any(width < product_coeff_bits(g.nodes[w]) for w in succ):
+            continue
+        out.add(v)
+    return out
+
+
 def estimate(g, device: str) -> Estimate:
     """Resource and clock estimate of graph ``g`` on ``device``."""
     prof = get_profile(device)
@@ -263,17 +294,7 @@ def estimate(g, device: str) -> Estimate:
                 srl_cells += cells["srl"]
     # adders the hard blocks take in: pre-adders in front of a product, and one tree adder
     # after each product (its post-adder), per the profile's probe-measured rules
-    in_block = set()
-    pre_bits = getattr(prof, "pre_adder_bits", 0)
-    if pre_bits:
-        for width, role, v in m.adders:
-            succ = list(g.successors(v))
-            # operands straight from registers (delay-line taps), as in the probe; a
-            # pre-adder behind the multiplexers of a folded structure stays in fabric
-            # (calibration run: time-shared xc7 designs)
-            direct = all(g.nodes[u]["kind"] != "mux" for u in g.predecessors(v))
-            if role == "preadd" and direct and width <= pre_bits and succ and all(w in hard for w in succ):
-                in_block.add(v)
+    in_block = pre_adders_in_blocks(g, prof, m.adders, hard)
     if getattr(prof, "tree_post_adders", False) and prof.regs is not None:
         taken = set()
         for v in sorted(hard, key=str):

@@ -11,6 +11,7 @@ an estimate for sizing before layout, not a timing sign-off.
 from __future__ import annotations
 
 import math
+import weakref
 from functools import lru_cache
 
 from ..sfg.metrics import is_free_coeff, product_coeff_bits
@@ -52,9 +53,33 @@ def delay_function(device: str):
         worst = max((len(g._succ[u]) for u in g._pred[v]), default=1)
         return d.fanout_ns_per_doubling * math.log2(worst) if worst > 1 else 0.0
 
+    spread_cache = weakref.WeakKeyDictionary()
+
+    def blocks_in(g) -> int:
+        # hard multiplier blocks of the whole graph (cached per graph object and node count:
+        # the transforms build new graphs, pipelining only adds registers to edges)
+        key = len(g._node)
+        hit = spread_cache.get(g)
+        if hit is not None and hit[0] == key:
+            return hit[1]
+        from .devices import mult_blocks
+        total = 0
+        for v, n in g._node.items():
+            if n["kind"] != "mul" or _mul_free(n) or not g._pred[v]:
+                continue
+            u = next(iter(g._pred[v]))
+            total += mult_blocks(prof, g.nodes[u]["fmt"].bits, product_coeff_bits(n))
+        spread_cache[g] = (key, total)
+        return total
+
+    def spread(g, v):
+        if not d.dsp_spread_ns or g.nodes[v]["kind"] != "mul" or _mul_free(g.nodes[v]):
+            return 0.0
+        return d.dsp_spread_ns * max(0.0, math.sqrt(blocks_in(g)) - 1.0)
+
     def f(g, v):
         t = f0(g, v)
-        return t + fanout(g, v) if t > 0 else t
+        return t + max(fanout(g, v), spread(g, v)) if t > 0 else t
 
     def f0(g, v):
         n = g.nodes[v]

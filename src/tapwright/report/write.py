@@ -345,7 +345,12 @@ def write_report(folder, *, spec, plan, fixed, sheet: dict, candidates=(), chose
     L.append("- test vectors and the self-checking testbench (see design.json `testbench`)")
     L.append("")
     L.append(f"_{CAUTION}_")
-    from ..cost.accuracy import accuracy_line
+    from ..cost.accuracy import accuracy_line, clock_margin_note
+    est = sheet.get("estimate", {})
+    note = clock_margin_note(est.get("device", spec.device), spec.clock, est.get("fmax_mhz"))
+    if note:
+        L.append("")
+        L.append(f"**{note[0].upper() + note[1:]}**")
     acc = accuracy_line(sheet.get("estimate", {}).get("device", spec.device))
     if acc:
         L.append("")
