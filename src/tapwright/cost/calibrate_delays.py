@@ -184,6 +184,41 @@ class MulAddTreeProbe(wiring.Component):
         return m
 
 
+class RoundProbe(wiring.Component):
+    """A product plus a registered word, then rounded by ``shift`` bits and registered:
+    ``y = round(x * c + s)``, the sum either combinational (``source="sum"``) or
+    registered first (``"reg"``), rounded as the lowering does (``rounding``:
+    ``truncate``, ``half_up`` or ``half_even``; rtl/lower.py ``_quant``)."""
+
+    def __init__(self, x_bits=41, c=9001, s_bits=56, shift=12, rounding="half_up", source="sum"):
+        self.x_bits, self.c, self.s_bits, self.shift = x_bits, c, s_bits, shift
+        self.rounding, self.source = rounding, source
+        super().__init__({"x": In(signed(x_bits)), "s": In(signed(s_bits)),
+                          "y": Out(signed(s_bits - shift + 1))})
+
+    def elaborate(self, platform):
+        m = Module()
+        rx = Signal(signed(self.x_bits), name="x_r", reset_less=True)
+        rs = Signal(signed(self.s_bits), name="s_r", reset_less=True)
+        a = Signal(signed(self.s_bits + 1), name="a", reset_less=True)
+        ry = Signal(self.y.shape(), name="y_r", reset_less=True)
+        m.d.sync += [rx.eq(self.x), rs.eq(self.s)]
+        (m.d.comb if self.source == "sum" else m.d.sync).__iadd__(a.eq(rx * self.c + rs))
+        k = self.shift
+        if self.rounding == "truncate":
+            r = a.shift_right(k)
+        elif self.rounding == "half_up":
+            r = (a + (1 << (k - 1))).shift_right(k)
+        else:
+            q = a.shift_right(k)
+            low = a[:k]
+            half = 1 << (k - 1)
+            r = q + ((low > half) | ((low == half) & q[0]))
+        m.d.sync += ry.eq(r)
+        m.d.comb += self.y.eq(ry)
+        return m
+
+
 class WordSumProbe(wiring.Component):
     """Registered sum of ``n`` registered ``bits``-wide words by a balanced tree of
     two-input adders, each sum its own signal: the adder tree after the accumulators of a

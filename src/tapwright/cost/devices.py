@@ -173,6 +173,9 @@ class DeviceProfile:
     #: the pre-adder is taken in only where its sum is at least as wide as the coefficient
     #: (synthesis puts the wider operand on the port that has the pre-adder)
     pre_adder_on_wider: bool = False
+    #: the rounding constant after a sum joined to it without a register costs no adder of
+    #: its own (synthesis folds it into that sum)
+    round_into_sum: bool = False
     #: each hard product takes one adder of the tree it feeds as the block's post-adder
     #: (cascade or C port), up to ``regs.post_adder_bits`` wide
     tree_post_adders: bool = False
@@ -307,6 +310,7 @@ XC7 = DeviceProfile(
         ("pre_adder_bits", "[S: UG479 DSP48E1: 25-bit A/D pre-adder]; [C: probe PreAddMulProbe: "
          "registered (a + d) * c, 16-bit a, d -> 1 DSP48E1 and no other cell (USE_DPORT)]"),
         ("pre_adder_on_wider", "[S: Yosys techlibs/common/mul2dsp.v (the wider operand on A) and passes/pmgen/xilinx_dsp.pmg (preAdd matched on the A port only)]; [C: PreAddMulProbe 8-bit data and a 17-bit coefficient: no USE_DPORT, the pre-adder in fabric (tests/test_probes.py); calibration netlists: audio_dec64 fir8+fir4+fir2 10 of 84 pre-adders packed, adc_halfband halfband+polyphase 11 of 12, each the ones whose sum is at least as wide as the coefficient]"),
+        ("round_into_sum", "[C: RoundProbe of tapwright.cost.calibrate_delays (tests/test_probes.py), a 57-bit sum of a 2-block product and a register rounded by 12 bits: truncate 56 LUT 15 CARRY4; half_up after the combinational sum +56 LUT and no carry, after a register +12 CARRY4 and no LUT; half_even +12 CARRY4 and 3 to 6 LUT either way]; [C: calibration run, xc7 LUT+carry re-estimated with the rule: vib_bandpass_iir sos_df2t (seven half_even roundings) 1.21x -> 1.07x, adc_halfband halfband+polyphase/p2.4 0.78x -> 0.81x, audio_dec64 fir8+fir4+fir2/k20.15.50 0.83x -> 0.80x]"),
         ("tree_post_adders", "[C: probe MulAddTreeProbe, sum of n registered constant products: "
          "n = 2, 4, 8 -> n DSP48E1 and n/2 - 1 fabric adders (LUT2 + CARRY4): each first-level "
          "adder is a DSP post-adder]"),
@@ -318,6 +322,7 @@ XC7 = DeviceProfile(
     ),
     pre_adder_bits=25,
     pre_adder_on_wider=True,
+    round_into_sum=True,
     tree_post_adders=True,
     tree_compressor_lut_per_bit=2.0,
     tree_compressor_scope="products",

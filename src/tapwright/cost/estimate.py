@@ -382,10 +382,40 @@ def estimate(g, device: str) -> Estimate:
         l, c = adder_cells(prof, width)
         lut += l
         carry += c
-    for width in m.round_adders:
-        l, c = adder_cells(prof, width)
-        lut += l
-        carry += c
+    if getattr(prof, "round_into_sum", False):
+        # rounding as synth_xilinx maps the lowering's forms (RoundProbe of
+        # tapwright.cost.calibrate_delays; tests/test_probes.py): half_even is an increment
+        # by the tie-break bit, a carry chain of its own plus a few LUTs for the compare;
+        # half_up's constant joins a two-operand fabric sum it follows
+        # without a register as one more row of LUTs (no carry chain), and after a register
+        # or a sum in a hard block is an adder of a constant (a carry chain, no LUTs). After
+        # a multi-level adder tree either keeps a full adder (not probed; the tiny_lp lock
+        # of tests/test_calibrate.py synthesizes 125 LUT where half_even as probed gives 83)
+        for v, n in g._node.items():
+            if n["kind"] != "quant" or n["rounding"] == "truncate":
+                continue
+            (u, _), = operands(g, v)
+            shift = g.nodes[u]["fmt"].frac - n["fmt"].frac
+            if shift <= 0:
+                continue
+            l, c = adder_cells(prof, g.nodes[u]["fmt"].bits - shift + 1)
+            fabric_sum = g.nodes[u]["kind"] == "add" and g.in_degree(u) >= 2 \
+                and u not in in_block and joined(u, v)
+            if fabric_sum and any(g.nodes[w]["kind"] == "add" and joined(w, u) for w in g._pred[u]):
+                lut += l          # after a multi-level adder tree: a full adder (not probed)
+                carry += c
+            elif n["rounding"] == "half_even":
+                carry += c
+                lut += -(-shift // 4)
+            elif fabric_sum:
+                lut += adder_cells(prof, g.nodes[u]["fmt"].bits)[0]   # a row as wide as the sum
+            else:
+                carry += c
+    else:
+        for width in m.round_adders:
+            l, c = adder_cells(prof, width)
+            lut += l
+            carry += c
     # saturation: compare the dropped MSBs and multiplex the limits, about a LUT per output bit
     for v, n in g._node.items():
         if n["kind"] == "quant" and n["overflow"] == "saturate":
