@@ -166,11 +166,9 @@ def test_packaged_accuracy_matches_the_published_tables():
 
 
 # ECP5 designs of docs/accuracy.csv (of the specs below) whose LUT+carry the model misses
-# by more than 20 %. servo_diff k5 (0.76x, new in the run of 2026-12-03 evening): its
-# operand multiplexers and coefficient tables match (498 LUT4 in the fan-in of the
-# MULT18X18D inputs, 502 estimated), but the sum of its four accumulators and a registered
-# word, rounded and saturated, takes about 560 LUT4 where the model charges about 305.
-KNOWN_LUT_MISSES: set = {("servo_diff", "timeshared+symmetric/k5")}
+# by more than 20 %: none since the ECP5 lowering keeps adder-tree sums as carry chains
+# (servo_diff timeshared+symmetric/k5 went from 0.76x to 0.94x); every design is locked
+KNOWN_LUT_MISSES: set = set()
 
 
 @pytest.mark.parametrize("spec_name", ["adc_halfband", "sensor_lowpass", "servo_diff", "rx_chan_dec4"])

@@ -553,3 +553,33 @@ def test_ecp5_word_sum_is_a_compressor_as_wide_as_the_sum(tmp_path, n):
     # 25-bit first-level adders at n = 4) is low here
     if n == 4:
         assert 2.0 * (25 + 25) / r["lut"] < 0.85
+
+
+def test_ecp5_tree_sums_are_kept_as_carry_chains(tmp_path):
+    """On ECP5 the lowering marks every sum of a product tree ``keep``: synth_ecp5 then maps
+    each to its own CCU2C chain instead of merging the tree into a full-adder compressor
+    (measured here on the 13-tap direct form of tests/test_calibrate.py's spec: 301 LUT4
+    and 78 CCU2C without the attribute, 25 LUT4 and 138 CCU2C with it). The estimate then
+    charges one carry chain per tree adder."""
+    import dataclasses
+
+    from tapwright.plan import plan
+    from tapwright.rtl.emit import emit_verilog
+    from tapwright.sfg.metrics import live_graph
+    from tapwright.sfg.recipe import realize
+    from tapwright.spec import parse_spec_text
+
+    from test_calibrate import TINY
+
+    assert dv.get_profile("ecp5").keep_tree_sums
+    assert not dv.get_profile("xc7").keep_tree_sums and not dv.get_profile("ice40").keep_tree_sums
+    spec = dataclasses.replace(parse_spec_text(TINY), device="ecp5")
+    cand = plan(spec).exploration.by_label()["direct"]
+    g = live_graph(realize(cand.fixed, cand.recipe, name=spec.name))
+    text = emit_verilog(g, spec.name)
+    assert "(* keep" in text
+    r = synthesize(text, spec.name, "ecp5", workdir=tmp_path / "direct")
+    e = cand.estimate
+    assert r["dsp"] == e.dsp == 13
+    assert r["lut"] < r["carry"] / 2          # chains, not compressor rows
+    assert abs((e.lut + e.carry) / (r["lut"] + r["carry"]) - 1) <= 0.20

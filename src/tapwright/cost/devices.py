@@ -210,6 +210,10 @@ class DeviceProfile:
     #: leaves are accumulators (and other registers, no products); 0: such trees follow
     #: tree_compressor_lut_per_bit
     acc_tree_lut_per_bit: float = 0.0
+    #: the lowering marks every sum of a product or accumulator tree ``keep`` so that
+    #: synthesis maps each to a carry chain instead of merging the tree into a compressor
+    #: (the tree rules above then do not apply)
+    keep_tree_sums: bool = False
 
     @property
     def cell_classes(self) -> dict:
@@ -397,6 +401,7 @@ ECP5 = DeviceProfile(
     mux_deepest_ratio=1.2,
     mux_deepest_min_inputs=9,
     acc_tree_lut_per_bit=2.3,
+    keep_tree_sums=True,
     mux_deepest_lut_per_input_bit=2.29,
 )
 

@@ -147,10 +147,13 @@ class _Lowering(NetlistWalk):
         self.rst = ResetSignal("sync")
         self.val: dict = {}
         self._split_out: dict = {}   # multiplexer with registers inside -> its last level
+        self.keep_sums = _keeps_tree_sums(g)
         for v in eval_order(g):
             n = g.nodes[v]
             f = n["fmt"]
-            self.val[v] = Signal(signed(f.bits), name=f"v_{_sname(v)}")
+            kept = self.keep_sums and _is_tree_sum(g, v)
+            self.val[v] = Signal(signed(f.bits), name=f"v_{_sname(v)}",
+                                 attrs={"keep": 1} if kept else None)
         self._ports()
         self._walk_init()
         for v in eval_order(g):
@@ -355,7 +358,10 @@ class _Lowering(NetlistWalk):
                 if s:
                     a = a.shift_left(s)
                 terms.append((a, e["sign"]))
-            m.d.comb += out.eq(_sum(terms))
+            if self.keep_sums and _is_tree_sum(g, v) and len(terms) > 2:
+                m.d.comb += out.eq(_sum(terms, keep=f"k_{_sname(v)}", m=m))
+            else:
+                m.d.comb += out.eq(_sum(terms))
             return
         if k == "quant":
             (u, e), = ops
@@ -441,11 +447,32 @@ class _Lowering(NetlistWalk):
         return r  # assignment to the fmt-wide signal keeps the low bits: exact or the wrap
 
 
-def _sum(terms):
-    """Balanced tree of signed terms [(value, sign)]."""
+def _keeps_tree_sums(g) -> bool:
+    """Whether the graph's target family keeps every adder of a product tree as its own
+    carry chain (profile field ``keep_tree_sums``; the device is the recipe's delay model)."""
+    dev = getattr(g.graph.get("recipe"), "delay_model", None)
+    if not dev:
+        return False
+    from ..cost.devices import get_profile
+    try:
+        return bool(getattr(get_profile(dev), "keep_tree_sums", False))
+    except Exception:
+        return False
+
+
+def _is_tree_sum(g, v) -> bool:
+    n = g.nodes[v]
+    return n["kind"] == "add" and n.get("role") == "tree" and g.in_degree(v) >= 2
+
+
+def _sum(terms, keep: str | None = None, m=None):
+    """Balanced tree of signed terms [(value, sign)]. With ``keep`` (a name prefix) every
+    pairwise sum is a signal of its own with the ``keep`` attribute, in module ``m``: Yosys
+    then maps each to one carry chain instead of merging them into a compressor."""
     level = [(a, s) for a, s in terms]
     if not level:
         return Const(0)
+    k = 0
     while len(level) > 1:
         nxt = []
         for i in range(0, len(level) - 1, 2):
@@ -458,6 +485,12 @@ def _sum(terms):
                 nxt.append((b - a, 1))
             else:
                 nxt.append((a + b, -1))
+            if keep is not None and len(level) > 2:
+                e, sg = nxt[-1]
+                w = Signal(signed(len(e)), name=f"{keep}_{k}", attrs={"keep": 1})
+                k += 1
+                m.d.comb += w.eq(e)
+                nxt[-1] = (w, sg)
         if len(level) % 2:
             nxt.append(level[-1])
         level = nxt
