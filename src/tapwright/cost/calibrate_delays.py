@@ -203,7 +203,10 @@ class RoundProbe(wiring.Component):
         a = Signal(signed(self.s_bits + 1), name="a", reset_less=True)
         ry = Signal(self.y.shape(), name="y_r", reset_less=True)
         m.d.sync += [rx.eq(self.x), rs.eq(self.s)]
-        (m.d.comb if self.source == "sum" else m.d.sync).__iadd__(a.eq(rx * self.c + rs))
+        if self.source == "sum":
+            m.d.comb += a.eq(rx * self.c + rs)
+        else:
+            m.d.sync += a.eq(rx * self.c + rs)
         k = self.shift
         if self.rounding == "truncate":
             r = a.shift_right(k)

@@ -173,8 +173,10 @@ class DeviceProfile:
     #: the pre-adder is taken in only where its sum is at least as wide as the coefficient
     #: (synthesis puts the wider operand on the port that has the pre-adder)
     pre_adder_on_wider: bool = False
-    #: the rounding constant after a sum joined to it without a register costs no adder of
-    #: its own (synthesis folds it into that sum)
+    #: rounding costed as the RoundProbe measured it: half_up after a two-operand sum joined
+    #: to it without a register is one more row of LUTs (no carry chain), after a register a
+    #: carry chain and no LUTs; half_even a carry chain and a few LUTs; after a multi-level
+    #: tree a full adder (False: a full adder everywhere)
     round_into_sum: bool = False
     #: each hard product takes one adder of the tree it feeds as the block's post-adder
     #: (cascade or C port), up to ``regs.post_adder_bits`` wide

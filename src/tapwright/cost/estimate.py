@@ -321,7 +321,9 @@ def estimate(g, device: str) -> Estimate:
         ff -= g.nodes[w]["fmt"].bits
     # adder trees fed by hard products: on some families synthesis compresses all but the
     # last adder of each tree into full-adder LUTs (profile field tree_compressor_lut_per_bit)
-    comp = 0.0 if getattr(prof, "keep_tree_sums", False) else getattr(prof, "tree_compressor_lut_per_bit", 0.0)
+    # (none where the lowering keeps every tree sum as a carry chain of its own)
+    kept = prof.keep_tree_sums
+    comp = 0.0 if kept else prof.tree_compressor_lut_per_bit
     roots = set()
     under = set()   # tree adders the compressor rule covers (see tree_compressor_scope)
     parent = {}     # tree adder -> the tree adder it feeds without a register (None: a root)
@@ -346,7 +348,7 @@ def estimate(g, device: str) -> Estimate:
                 roots.add(v)
     # a tree whose leaves are accumulators (and other registers, no products): each
     # compressor row is as wide as the root (profile field acc_tree_lut_per_bit)
-    reg_tree = 0.0 if getattr(prof, "keep_tree_sums", False) else getattr(prof, "acc_tree_lut_per_bit", 0.0)
+    reg_tree = 0.0 if kept else prof.acc_tree_lut_per_bit
     root_of = {}
     reg_roots = set()
     if reg_tree and roots:

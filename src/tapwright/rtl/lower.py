@@ -147,13 +147,12 @@ class _Lowering(NetlistWalk):
         self.rst = ResetSignal("sync")
         self.val: dict = {}
         self._split_out: dict = {}   # multiplexer with registers inside -> its last level
-        self.keep_sums = _keeps_tree_sums(g)
+        # sums of adder trees kept as carry chains of their own (profile keep_tree_sums)
+        self.kept = {v for v in g if _is_tree_sum(g, v)} if _keeps_tree_sums(g) else set()
         for v in eval_order(g):
-            n = g.nodes[v]
-            f = n["fmt"]
-            kept = self.keep_sums and _is_tree_sum(g, v)
+            f = g.nodes[v]["fmt"]
             self.val[v] = Signal(signed(f.bits), name=f"v_{_sname(v)}",
-                                 attrs={"keep": 1} if kept else None)
+                                 attrs={"keep": 1} if v in self.kept else None)
         self._ports()
         self._walk_init()
         for v in eval_order(g):
@@ -358,7 +357,7 @@ class _Lowering(NetlistWalk):
                 if s:
                     a = a.shift_left(s)
                 terms.append((a, e["sign"]))
-            if self.keep_sums and _is_tree_sum(g, v) and len(terms) > 2:
+            if v in self.kept and len(terms) > 2:
                 m.d.comb += out.eq(_sum(terms, keep=f"k_{_sname(v)}", m=m))
             else:
                 m.d.comb += out.eq(_sum(terms))
@@ -453,11 +452,8 @@ def _keeps_tree_sums(g) -> bool:
     dev = getattr(g.graph.get("recipe"), "delay_model", None)
     if not dev:
         return False
-    from ..cost.devices import get_profile
-    try:
-        return bool(getattr(get_profile(dev), "keep_tree_sums", False))
-    except Exception:
-        return False
+    from ..cost.devices import DEVICES, get_profile
+    return dev in DEVICES and get_profile(dev).keep_tree_sums
 
 
 def _is_tree_sum(g, v) -> bool:
