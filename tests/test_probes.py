@@ -590,6 +590,9 @@ def test_ecp5_multiplexer_before_a_split_product_is_on_the_longest_path():
     assert deep == {"s1_f0_xa", "s1_f0_xb"}
     # with the split product ending the path as a whole block would, the flags go elsewhere
     assert deepest_muxes(g, timing.delay_function("ecp5"), hard, prof.mux_deepest_ratio) != deep
+    # the clock model times the fabric sum after the block (single blocks otherwise alike)
+    f = timing.delay_function("ecp5")
+    assert f(g, "s1_f0_mul") > f(g, "s0_f0_mul") + 0.5
 
 
 @pytest.mark.parametrize("n", [4, 7])

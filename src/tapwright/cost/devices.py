@@ -613,6 +613,16 @@ def mult_soft_slices(profile, a_bits: int, b_bits: int, *, a_signed: bool = True
     return soft if blocks else []
 
 
+def product_soft_slices(profile, a_bits: int, b_bits: int, coeff=None) -> list:
+    """:func:`mult_soft_slices` of an ``a_bits`` signed operand by a ``b_bits`` coefficient:
+    ``coeff`` the constant, None for a table (a signed operand). A positive constant is an
+    unsigned operand one bit narrower (ConstMulProbe on ECP5: a positive 19-bit constant
+    takes the block alone, a negative one leaves a one-bit slice)."""
+    if coeff is not None and coeff > 0 and b_bits > 1:
+        return mult_soft_slices(profile, a_bits, b_bits - 1, b_signed=False)
+    return mult_soft_slices(profile, a_bits, b_bits)
+
+
 def _tile(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool = True) -> int:
     """One pass of mul2dsp.v on an ``a x b`` ``$mul`` (re-entered for every slice).
 

@@ -30,7 +30,7 @@ from ..sfg.graph import edge_list, input_interval, operands
 from ..sfg.metrics import live_graph, measure, product_coeff_bits
 from ..sfg.transforms.pipeline import node_delays, split_levels
 from . import timing
-from .devices import (absorbed_registers, adder_cells, get_profile, mult_blocks, mult_soft_slices,
+from .devices import (absorbed_registers, adder_cells, get_profile, mult_blocks, product_soft_slices,
                       shift_register_cells)
 
 
@@ -90,7 +90,7 @@ def deepest_muxes(g, delays, hard, ratio: float, through=None) -> set:
 
     ``through``: products (node -> ns) whose input path does not end at the block but
     goes on through the fabric with that delay (a slice of the product left in LUTs,
-    summed with the blocks' output: :func:`~tapwright.cost.devices.mult_soft_slices`)."""
+    summed with the blocks' output: :func:`soft_slices`)."""
     nodes = g._node
     nd = dict(node_delays(g, delays))
     for v in hard:
@@ -132,13 +132,9 @@ def deepest_muxes(g, delays, hard, ratio: float, through=None) -> set:
 
 def soft_slices(prof, g, a: int, b: int, v) -> list:
     """The slices of product ``v`` (``a``-bit operand by a ``b``-bit coefficient) that stay
-    in LUTs (:func:`~tapwright.cost.devices.mult_soft_slices`). A positive constant is an
-    unsigned operand one bit narrower (ConstMulProbe on ECP5: a positive 19-bit constant
-    takes the block alone, a negative one leaves a 1-bit slice)."""
+    in LUTs (:func:`~tapwright.cost.devices.product_soft_slices`)."""
     n = g._node[v]
-    if n.get("table") is None and int(n["coeff"]) > 0 and b > 1:
-        return mult_soft_slices(prof, a, b - 1, b_signed=False)
-    return mult_soft_slices(prof, a, b)
+    return product_soft_slices(prof, a, b, None if n.get("table") is not None else int(n["coeff"]))
 
 
 def split_products(prof, g, mults, hard) -> dict:

@@ -93,13 +93,18 @@ def delay_function(device: str):
             if prof.mult is not None and getattr(prof, "tile_sums_in_fabric", True) \
                     and not (prof.regs is not None and prof.regs.cascade):
                 from ..sfg.graph import operands
-                from .devices import mult_blocks
+                from .devices import mult_blocks, product_soft_slices
                 (u, _), = operands(g, v)
                 a = g.nodes[u]["fmt"].bits
                 b = product_coeff_bits(n)
                 blocks = mult_blocks(prof, a, b)
                 if blocks > 1:
                     t += math.ceil(math.log2(blocks)) * (adder(a + b) - d.adder_fixed_ns + d.route_ns)
+                elif blocks == 1 and prof.soft_slice_cells and product_soft_slices(
+                        prof, a, b, None if n.get("table") is not None else int(n["coeff"])):
+                    # a one-bit slice left in LUTs: the block's output is summed with it in
+                    # the fabric (profile soft_slice_cells)
+                    t += adder(a + b - prof.mult.a_partial + 2) - d.adder_fixed_ns + d.route_ns
             return t
         if k == "add":
             ins = g.in_degree(v)
