@@ -562,8 +562,33 @@ def test_ecp5_one_bit_slice_of_a_product_stays_in_fabric(tmp_path, a, b, blocks,
     MULT18X18D, 10 LUT4, 12 CCU2C; 18 x 10 -> the block alone)."""
     r = syn(tmp_path, MulProbe(a, b, out_reg=1), "ecp5", f"m{a}x{b}")
     assert r["dsp"] == blocks == dv.mult_blocks("ecp5", a, b)
-    assert len(dv.mult_soft_slices("ecp5", a, b)) == soft
-    assert (r["lut"] + r["carry"] > 0) == bool(soft), r["cells"]
+    slices = dv.mult_soft_slices("ecp5", a, b)
+    assert len(slices) == soft
+    if blocks == 1:
+        # the model's cells: the slice's own LUT4 and CCU2C, and the sum with the block
+        lpb, cpb, cps = dv.get_profile("ecp5").soft_slice_cells
+        lut = sum(round(lpb * max(s)) for s in slices)
+        carry = sum(round(cpb * max(s)) + cps for s in slices) + \
+            sum(dv.adder_cells("ecp5", w)[1] for _, w in dv.product_tile_sums("ecp5", a, b))
+        assert (r["lut"], r["carry"]) == (lut, carry), r["cells"]
+
+
+@pytest.mark.parametrize("x, c, blocks, sums", [(29, 1500001, 4, [(2, 21), (2, 14), (2, 32)]),
+                                                (41, 9001, 3, [(3, 37)])])
+def test_ecp5_tile_sums_follow_the_cuts(tmp_path, x, c, blocks, sums):
+    """mul2dsp.v sums a tiled product's partial products per cut. Cut along both operands
+    (29 x 22 bits: 2 x 2 blocks), every sum has two terms and synth_ecp5 builds carry
+    chains only (measured here: 34 CCU2C, no LUT4; the three sums' chains: 11 + 7 + 16);
+    three slices of one operand (41 x 15) make a three-term sum with a row of full-adder
+    LUT4 (73) beside its chain."""
+    r = syn(tmp_path, ConstMulProbe(x, c), "ecp5", f"c{x}")
+    assert r["dsp"] == blocks
+    assert dv.product_tile_sums("ecp5", x, abs(c).bit_length() + 1, c) == sums
+    chains = sum(dv.adder_cells("ecp5", w)[1] for _, w in sums)
+    if all(t == 2 for t, _ in sums):
+        assert r["lut"] == 0 and abs(r["carry"] - chains) <= 2, r["cells"]
+    else:
+        assert r["lut"] >= 40 and r["carry"] >= chains, r["cells"]
 
 
 def test_ecp5_multiplexer_before_a_split_product_is_on_the_longest_path():

