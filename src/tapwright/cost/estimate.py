@@ -27,7 +27,7 @@ import math
 from dataclasses import dataclass, field
 
 from ..sfg.graph import edge_list, input_interval, operands
-from ..sfg.metrics import live_graph, measure, product_coeff_bits
+from ..sfg.metrics import _coeff_bits as coeff_bits, live_graph, measure, product_coeff_bits
 from ..sfg.transforms.pipeline import node_delays, split_levels
 from . import timing
 from .devices import (absorbed_registers, adder_cells, get_profile, mult_blocks, product_soft_slices,
@@ -149,10 +149,32 @@ def split_products(prof, g, mults, hard) -> dict:
             for a, b, v in mults if v in hard and soft_slices(prof, g, a, b, v)}
 
 
-def _table_luts(prof, entries: int, width: int) -> int:
+def tables_luts(prof, g) -> int:
+    """LUT cells of the time-shared coefficient tables of ``g``: one function of the step
+    counter per bit column, and synthesis keeps only the distinct ones of each stage's
+    counter (constant columns and a column equal to a counter bit take none; identical
+    columns of different tables share a LUT). A column of more entries than a LUT has
+    inputs takes one LUT per ``2**k`` entries (the multiplexer after them is not counted).
+    xc7 netlist of sensor_lowpass timeshared+symmetric/k3: seven 3-entry tables of 7 to 12
+    bits in 4 LUT and 2 INV, where one LUT per bit gave 63."""
     k = max(2, prof.lut_inputs)
-    per = 1 << k
-    return width * math.ceil(entries / per)
+    seen = set()
+    total = 0
+    for v, n in g._node.items():
+        if n["kind"] != "mul" or n.get("table") is None:
+            continue
+        vals = [int(c) for c in n["table"]]
+        K = len(vals)
+        step_bits = {tuple((s >> i) & 1 for s in range(K)) for i in range(max(1, (K - 1).bit_length()))}
+        for j in range(coeff_bits(n)):
+            col = tuple((c >> j) & 1 for c in vals)
+            if len(set(col)) == 1 or col in step_bits:
+                continue
+            key = (n.get("stage"), K, col)
+            if key not in seen:
+                seen.add(key)
+                total += -(-K // (1 << k))
+    return total
 
 
 def pre_adders_in_blocks(g, prof, adders, hard) -> set:
@@ -478,8 +500,7 @@ def estimate(g, device: str) -> Estimate:
             # up to 4 inputs a level is one LUT level: the probes' figure holds
             lut += groups * (int(round(short * (k - 1) * width)) if short and k > 4
                              else _mux_luts(prof, width, k))
-    for entries, width in m.tables:
-        lut += _table_luts(prof, entries, width)
+    lut += tables_luts(prof, g)
     # control: phase counters, schedule counter, valid pipeline
     if m.counter_bits:
         l, c = adder_cells(prof, m.counter_bits)
