@@ -248,8 +248,9 @@ def estimate(g, device: str) -> Estimate:
             continue
         est.dsp += blocks
         if prof.soft_slice_cells:
-            # a one-bit slice left in LUTs: a row of LUTs as wide as the other operand and
-            # its fabric sum with the blocks' output (profile soft_slice_cells, probes)
+            # a one-bit slice left in LUTs: its own product, a row of LUTs as wide as the
+            # other operand and a short carry chain (profile soft_slice_cells, probes); its
+            # sum with the blocks' output is one of the tile sums below
             lpb, cpb, cps = prof.soft_slice_cells
             for x, y in soft_slices(prof, g, a, b, v):
                 other = max(x, y)
