@@ -14,6 +14,7 @@ per-device branching, so a new family is a new table.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import lru_cache
 from typing import Optional
 
 __all__ = ["MultBlock", "RegisterAbsorption", "Part", "Delays", "DeviceProfile",
@@ -606,21 +607,27 @@ def mult_soft_slices(profile, a_bits: int, b_bits: int, *, a_signed: bool = True
     product's input path goes on through that sum (a 19-bit signed coefficient on ECP5's
     18-bit MULT18X18D leaves a 1-bit slice)."""
     prof = get_profile(profile)
-    mb = prof.mult
-    if mb is None:
+    if prof.mult is None:
         return []
-    blocks, soft = _tile_parts(mb, a_bits, b_bits, a_signed, b_signed)
-    return soft if blocks else []
+    blocks, soft, _ = _tiling(prof.mult, a_bits, b_bits, a_signed, b_signed)
+    return list(soft) if blocks else []
+
+
+def _coeff_operand(b_bits: int, coeff) -> tuple:
+    """``(bits, signed)`` of a coefficient operand: ``coeff`` the constant, None for a
+    table (a signed operand). A positive constant is an unsigned operand one bit narrower
+    (ConstMulProbe on ECP5: a positive 19-bit constant takes the block alone, a negative
+    one leaves a one-bit slice)."""
+    if coeff is not None and coeff > 0 and b_bits > 1:
+        return b_bits - 1, False
+    return b_bits, True
 
 
 def product_soft_slices(profile, a_bits: int, b_bits: int, coeff=None) -> list:
-    """:func:`mult_soft_slices` of an ``a_bits`` signed operand by a ``b_bits`` coefficient:
-    ``coeff`` the constant, None for a table (a signed operand). A positive constant is an
-    unsigned operand one bit narrower (ConstMulProbe on ECP5: a positive 19-bit constant
-    takes the block alone, a negative one leaves a one-bit slice)."""
-    if coeff is not None and coeff > 0 and b_bits > 1:
-        return mult_soft_slices(profile, a_bits, b_bits - 1, b_signed=False)
-    return mult_soft_slices(profile, a_bits, b_bits)
+    """:func:`mult_soft_slices` of an ``a_bits`` signed operand by a ``b_bits`` coefficient
+    (``coeff`` as for :func:`_coeff_operand`)."""
+    bb, sb = _coeff_operand(b_bits, coeff)
+    return mult_soft_slices(profile, a_bits, bb, b_signed=sb)
 
 
 def product_tile_sums(profile, a_bits: int, b_bits: int, coeff=None) -> list:
@@ -632,75 +639,48 @@ def product_tile_sums(profile, a_bits: int, b_bits: int, coeff=None) -> list:
     34-36 CCU2C and no LUT4); three or more terms at one level take full-adder rows (41 x 15
     in three blocks: 73 LUT4 beside the CCU2C)."""
     prof = get_profile(profile)
-    mb = prof.mult
-    if mb is None:
+    if prof.mult is None:
         return []
-    b_signed = True
-    if coeff is not None and coeff > 0 and b_bits > 1:
-        b_bits, b_signed = b_bits - 1, False
-    sums: list = []
-    _tile_sums(mb, a_bits, b_bits, True, b_signed, True, sums)
-    return sums
-
-
-def _tile_sums(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool, out: list) -> None:
-    """The sums of :func:`_tile_parts`' recursion, appended to ``out``."""
-    if top and a < b:
-        a, b, sa, sb = b, a, sb, sa
-    if a < mb.a_min or b < mb.b_min or a + b < mb.y_min:
-        return
-    if mb.signed_only and not (sa or sb):
-        a, b, sa, sb = a + 1, b + 1, True, True
-    h = 1 if mb.signed_only else 0
-    if a > mb.a_max:
-        step = mb.a_partial - h
-        n = (a - mb.a_max + step - 1) // step
-        for _ in range(n):
-            _tile_sums(mb, mb.a_partial, b, sa, sb, False, out)
-        _tile_sums(mb, a - n * step, b, sa, sb, False, out)
-        out.append((n + 1, max(2, a + b - step)))
-    elif b > mb.b_max:
-        step = mb.b_partial - h
-        n = (b - mb.b_max + step - 1) // step
-        for _ in range(n):
-            _tile_sums(mb, a, mb.b_partial, sa, sb, False, out)
-        _tile_sums(mb, a, b - n * step, sa, sb, False, out)
-        out.append((n + 1, max(2, a + b - step)))
+    bb, sb = _coeff_operand(b_bits, coeff)
+    return list(_tiling(prof.mult, a_bits, bb, True, sb)[2])
 
 
 def _tile(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool = True) -> int:
-    """One pass of mul2dsp.v on an ``a x b`` ``$mul`` (re-entered for every slice).
+    """Blocks of one pass of mul2dsp.v on an ``a x b`` ``$mul`` (:func:`_tiling`)."""
+    return _tiling(mb, a, b, sa, sb, top)[0]
+
+
+@lru_cache(maxsize=4096)
+def _tiling(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool = True) -> tuple:
+    """One pass of mul2dsp.v on an ``a x b`` ``$mul`` (re-entered for every slice):
+    ``(blocks, soft slice shapes, fabric sums)``, the sums as ``(terms, width)`` per cut,
+    the slices' own sums first.
 
     Only the top-level ``$mul`` puts the wider operand on A; the slices are
     ``$__mul_gen`` cells that keep their operand order, so a slice whose B is
     still too wide is cut again along B [C: probe test_mult_tiling, xc7 32 x 24 ->
     4 DSP48E1, not the 2 that a swap inside the slices would give].
     """
-    return _tile_parts(mb, a, b, sa, sb, top)[0]
-
-
-def _tile_parts(mb: MultBlock, a: int, b: int, sa: bool, sb: bool, top: bool = True) -> tuple:
-    """``(blocks, [soft slice shapes])`` of :func:`_tile`."""
     if top and a < b:                           # "wider operand on A"
         a, b, sa, sb = b, a, sb, sa
     if a < mb.a_min or b < mb.b_min or a + b < mb.y_min:
-        return 0, [(a, b)]                      # _TECHMAP_FAIL_: stays a soft multiplier
+        return 0, ((a, b),), ()                 # _TECHMAP_FAIL_: stays a soft multiplier
     if mb.signed_only and not (sa or sb):       # unsigned -> signed with a zero MSB
         a, b, sa, sb = a + 1, b + 1, True, True
     h = 1 if mb.signed_only else 0              # sign_headroom
     if a > mb.a_max:
         step = mb.a_partial - h
         n = (a - mb.a_max + step - 1) // step
-        b1, s1 = _tile_parts(mb, mb.a_partial, b, sa, sb, False)
-        b2, s2 = _tile_parts(mb, a - n * step, b, sa, sb, False)
-        return n * b1 + b2, n * s1 + s2
+        b1, s1, t1 = _tiling(mb, mb.a_partial, b, sa, sb, False)
+        b2, s2, t2 = _tiling(mb, a - n * step, b, sa, sb, False)
+        return n * b1 + b2, n * s1 + s2, n * t1 + t2 + ((n + 1, max(2, a + b - step)),)
     if b > mb.b_max:
         step = mb.b_partial - h
         n = (b - mb.b_max + step - 1) // step
-        b1, s1 = _tile_parts(mb, a, mb.b_partial, sa, sb, False)
-        b2, s2 = _tile_parts(mb, a, b - n * step, sa, sb, False)
-        return n * b1 + b2, n * s1 + s2
-    return (1, []) if a + b > mb.min_ab_sum else (0, [(a, b)])
+        b1, s1, t1 = _tiling(mb, a, mb.b_partial, sa, sb, False)
+        b2, s2, t2 = _tiling(mb, a, b - n * step, sa, sb, False)
+        return n * b1 + b2, n * s1 + s2, n * t1 + t2 + ((n + 1, max(2, a + b - step)),)
+    return (1, (), ()) if a + b > mb.min_ab_sum else (0, ((a, b),), ())
 
 
 def adder_cells(profile, width: int, *, carry_out: bool = False) -> tuple[int, int]:

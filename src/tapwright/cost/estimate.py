@@ -27,7 +27,7 @@ import math
 from dataclasses import dataclass, field
 
 from ..sfg.graph import edge_list, input_interval, operands
-from ..sfg.metrics import _coeff_bits as coeff_bits, live_graph, measure, product_coeff_bits
+from ..sfg.metrics import live_graph, measure, product_coeff, product_coeff_bits
 from ..sfg.transforms.pipeline import node_delays, split_levels
 from . import timing
 from .devices import (absorbed_registers, adder_cells, get_profile, mult_blocks, product_soft_slices,
@@ -133,8 +133,7 @@ def deepest_muxes(g, delays, hard, ratio: float, through=None) -> set:
 def soft_slices(prof, g, a: int, b: int, v) -> list:
     """The slices of product ``v`` (``a``-bit operand by a ``b``-bit coefficient) that stay
     in LUTs (:func:`~tapwright.cost.devices.product_soft_slices`)."""
-    n = g._node[v]
-    return product_soft_slices(prof, a, b, None if n.get("table") is not None else int(n["coeff"]))
+    return product_soft_slices(prof, a, b, product_coeff(g._node[v]))
 
 
 def split_products(prof, g, mults, hard) -> dict:
@@ -166,7 +165,7 @@ def tables_luts(prof, g) -> int:
         vals = [int(c) for c in n["table"]]
         K = len(vals)
         step_bits = {tuple((s >> i) & 1 for s in range(K)) for i in range(max(1, (K - 1).bit_length()))}
-        for j in range(coeff_bits(n)):
+        for j in range(product_coeff_bits(n)):   # a table keeps its full width
             col = tuple((c >> j) & 1 for c in vals)
             if len(set(col)) == 1 or col in step_bits:
                 continue
@@ -268,8 +267,7 @@ def estimate(g, device: str) -> Estimate:
             # MULT18X18D: 700 LUT4 synthesized, 4486 estimated when every block past the
             # second was charged a row)
             comp_pp = getattr(prof, "tree_compressor_lut_per_bit", 0.0)
-            for terms, w in product_tile_sums(prof, a, b, None if n.get("table") is not None
-                                              else int(n["coeff"])):
+            for terms, w in product_tile_sums(prof, a, b, product_coeff(n)):
                 soft_mult_adders.append(w)
                 for _ in range(terms - 2):
                     if comp_pp:

@@ -14,7 +14,7 @@ import math
 import weakref
 from functools import lru_cache
 
-from ..sfg.metrics import is_free_coeff, product_coeff_bits
+from ..sfg.metrics import is_free_coeff, product_coeff, product_coeff_bits
 from ..sfg.transforms.pipeline import split_levels, unit_delays
 from .devices import get_profile
 
@@ -101,7 +101,7 @@ def delay_function(device: str):
                 if blocks > 1:
                     t += math.ceil(math.log2(blocks)) * (adder(a + b) - d.adder_fixed_ns + d.route_ns)
                 elif blocks == 1 and prof.soft_slice_cells and product_soft_slices(
-                        prof, a, b, None if n.get("table") is not None else int(n["coeff"])):
+                        prof, a, b, product_coeff(n)):
                     # a one-bit slice left in LUTs: the block's output is summed with it in
                     # the fabric (profile soft_slice_cells)
                     t += adder(a + b - prof.mult.a_partial + 2) - d.adder_fixed_ns + d.route_ns

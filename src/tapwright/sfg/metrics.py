@@ -72,6 +72,11 @@ def _coeff_bits(n) -> int:
     return bits_for_range(min(c, 0), max(c, 0))
 
 
+def product_coeff(n):
+    """The constant a ``mul`` node multiplies by, None for a time-shared table."""
+    return None if n.get("table") is not None else int(n["coeff"])
+
+
 def product_coeff_bits(n) -> int:
     """Width of the coefficient operand that synthesis multiplies by.
 
