@@ -38,6 +38,8 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("dir")
     s.add_argument("--device", default=None)
     s.add_argument("--pnr", action="store_true")
+    s.add_argument("--gate-check", action="store_true",
+                   help="also simulate the synthesized netlist against the bit-true model")
     return p
 
 

@@ -34,8 +34,11 @@ def _estimate_for(sheet: dict, device: str) -> dict:
     return estimate(g, device).as_dict()
 
 
-def synth_folder(folder, device: str | None = None, pnr: bool = False) -> dict:
-    """Synthesize a design folder; returns the comparison written to ``synth.json``."""
+def synth_folder(folder, device: str | None = None, pnr: bool = False, gate: bool = False) -> dict:
+    """Synthesize a design folder; returns the comparison written to ``synth.json``.
+
+    ``gate``: also simulate the synthesized netlist with the folder's testbench and the
+    family's cell models (:mod:`tapwright.synth.gate`); the result is ``out["gate"]``."""
     from ..cli import UserError
     from ..verify.check import load_sheet
     from .yosys import synthesize
@@ -63,8 +66,21 @@ def synth_folder(folder, device: str | None = None, pnr: bool = False) -> dict:
                                 io="serial")
             syn, pr = res["synth"], res["pnr"]
         else:
-            syn = synthesize(str(vfile), sheet["top"], device, workdir=Path(wd))
+            syn = synthesize(str(vfile), sheet["top"], device, workdir=Path(wd),
+                             netlist_out="gate_netlist.v" if gate else None)
             pr = None
+        gate_res = None
+        if gate:
+            from .gate import GateCheckUnavailable, gate_check
+            net = syn.get("netlist")
+            if not net or not str(net).endswith(".v"):
+                # the place-and-route flow synthesized a shell around the design
+                net = synthesize(str(vfile), sheet["top"], device, workdir=Path(wd) / "gate_syn",
+                                 netlist_out="gate_netlist.v")["netlist"]
+            try:
+                gate_res = gate_check(folder, sheet, device, Path(net), workdir=Path(wd) / "gate")
+            except GateCheckUnavailable as e:
+                gate_res = {"passed": None, "error": str(e)}
     out = {"top": sheet["top"], "device": device, "estimate": est,
            "synth": {k: syn.get(k) for k in CATEGORIES + ("other", "srl") if k in syn},
            "cells": syn.get("cells", {})}
@@ -72,6 +88,8 @@ def synth_folder(folder, device: str | None = None, pnr: bool = False) -> dict:
         out["synth"] = {k: syn.get(k) for k in ("mult_count", "add", "ff") if k in syn}
     if pr is not None:
         out["pnr"] = {"fmax_mhz": pr.get("fmax_mhz"), "met": pr.get("met")}
+    if gate_res is not None:
+        out["gate"] = gate_res
     ratios = {}
     for k in CATEGORIES:
         e, s = est.get(k), out["synth"].get(k)
@@ -108,11 +126,27 @@ def render(out: dict) -> str:
     w = [max(len(r[i]) for r in rows) for i in range(4)]
     for r in rows:
         lines.append("  " + "  ".join(c.ljust(w[i]) if i == 0 else c.rjust(w[i]) for i, c in enumerate(r)))
+    g = out.get("gate")
+    if g is not None:
+        lines.append("")
+        if g.get("passed") is None:
+            lines.append(f"gate-level check: not run ({g.get('error')})")
+        elif g["passed"]:
+            lines.append(f"gate-level check: PASS, the synthesized netlist matches the bit-true model on "
+                         f"{g['stimuli']} stimuli ({g['seconds']} s)")
+        else:
+            f = g["failures"][0]
+            lines.append(f"gate-level check: FAIL on {len(g['failures'])} of {g['stimuli']} stimuli "
+                         f"(first: {f['stimulus']}: {f['message']}); where the RTL passes "
+                         "'tapwright check', the synthesis run is at fault: do not use this netlist")
     lines += ["", "written: synth.json", CAUTION]
     return "\n".join(lines)
 
 
 def cmd_synth(args) -> int:
-    out = synth_folder(args.dir, args.device, args.pnr)
+    gate = bool(getattr(args, "gate_check", False))
+    out = synth_folder(args.dir, args.device, args.pnr, gate=gate)
     print(render(out))
+    if gate and not (out.get("gate") or {}).get("passed"):
+        return 1
     return 0
