@@ -169,6 +169,12 @@ class MapDelays:
     carry_ns_per_bit: float
     source: str
 
+    def adder_ns(self, width: int, *, chained: bool = False) -> float:
+        """A ``width``-bit carry-chain adder, fed from registers or (``chained``) by
+        another adder's sum."""
+        t = self.wire_ns + self.carry_in_ns + self.carry_out_ns
+        return t if chained else t + self.carry_ns_per_bit * width
+
 
 @dataclass(frozen=True)
 class DeviceProfile:

@@ -146,8 +146,7 @@ def synthesis_view(prof, g, m, hard):
     the fabric sum with the blocks' output (:func:`soft_slices`)."""
     md = prof.map_delays
     delays = timing.map_delay_function(prof.name)
-    through = {v: md.lut_ns + 2 * md.wire_ns + md.carry_in_ns + md.carry_out_ns
-               + md.carry_ns_per_bit * (a + b)
+    through = {v: md.lut_ns + md.wire_ns + md.adder_ns(a + b)
                for a, b, v in m.mults if v in hard and soft_slices(prof, g, a, b, v)}
     ends = (hard - set(through)) | {u for u, k in m.shared_mults.items() if k in hard and k not in through}
     return delays, ends, through
@@ -508,11 +507,11 @@ def estimate(g, device: str) -> Estimate:
     for width, inputs, v in m.muxes:
         r = g.nodes[v].get("mux_regs", 0)
         if not r:
-            cheap = _mux_luts(prof, width, inputs)
+            luts = _mux_luts(prof, width, inputs)
             share = depth_share(ratios[v], ramp) if v in ratios else 0.0
             if share:
-                cheap += share * (_mux_luts(prof, width, inputs, deepest=True) - cheap)
-            lut += int(round(cheap))
+                luts += share * (_mux_luts(prof, width, inputs, deepest=True) - luts)
+            lut += int(round(luts))
             continue
         # registers inside (pipeline mux_regs): each level a row of smaller multiplexers
         short = getattr(prof, "mux_split_lut_per_input_bit", 0.0)

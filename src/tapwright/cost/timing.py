@@ -16,7 +16,7 @@ from functools import lru_cache
 
 from ..sfg.metrics import is_free_coeff, product_coeff, product_coeff_bits
 from ..sfg.transforms.pipeline import split_levels, unit_delays
-from .devices import get_profile
+from .devices import get_profile, mult_blocks
 
 
 def _mul_free(n) -> bool:
@@ -81,7 +81,6 @@ def delay_function(device: str):
         hit = spread_cache.get(g)
         if hit is not None and hit[0] == key:
             return hit[1]
-        from .devices import mult_blocks
         total = 0
         for v, n in g._node.items():
             if n["kind"] != "mul" or _mul_free(n) or not g._pred[v]:
@@ -112,7 +111,7 @@ def delay_function(device: str):
             if prof.mult is not None and getattr(prof, "tile_sums_in_fabric", True) \
                     and not (prof.regs is not None and prof.regs.cascade):
                 from ..sfg.graph import operands
-                from .devices import mult_blocks, product_soft_slices
+                from .devices import product_soft_slices
                 (u, _), = operands(g, v)
                 a = g.nodes[u]["fmt"].bits
                 b = product_coeff_bits(n)
@@ -186,7 +185,6 @@ def map_delay_function(device: str):
     md = prof.map_delays
     if md is None:
         return None
-    step = md.wire_ns + md.carry_in_ns + md.carry_out_ns
 
     def joined_sum(g, v) -> bool:
         # an operand that is a sum computed without a register in between: the carry chains
@@ -199,7 +197,7 @@ def map_delay_function(device: str):
         return False
 
     def chain(g, v, w):
-        return step + (0.0 if joined_sum(g, v) else md.carry_ns_per_bit * w)
+        return md.adder_ns(w, chained=joined_sum(g, v))
 
     def f(g, v):
         n = g.nodes[v]
@@ -207,8 +205,7 @@ def map_delay_function(device: str):
         if k == "mul":
             if _mul_free(n) or not g._pred[v]:
                 return 0.0
-            from .devices import mult_blocks
-            (u, _), = ((u, None) for u in g._pred[v])
+            u = next(iter(g._pred[v]))
             a, b = g.nodes[u]["fmt"].bits, product_coeff_bits(n)
             # a fabric product is a tree of shifted partial products: about one chain
             return 0.0 if mult_blocks(prof, a, b) else chain(g, v, a + b)
@@ -222,7 +219,7 @@ def map_delay_function(device: str):
             if rounds:
                 t += chain(g, v, n["fmt"].bits)
             if saturates:
-                t += step + md.wire_ns + md.lut_ns      # comparators, then the select
+                t += md.adder_ns(0, chained=True) + md.wire_ns + md.lut_ns   # comparators, then the select
             return t
         if k == "mux":
             ports = int(n.get("ports", 2))

@@ -147,15 +147,12 @@ def zero_nodes(g) -> set:
     them) and sums of nothing but such values."""
     zero = {v for v, n in g._node.items()
             if n["kind"] == "mul" and n.get("table") is None and int(n["coeff"]) == 0}
-    if not zero:
-        return zero
-    changed = True
-    while changed:
-        changed = False
-        for v, n in g._node.items():
-            if v not in zero and n["kind"] == "add" and g._pred[v] and all(u in zero for u in g._pred[v]):
+    stack = list(zero)
+    while stack:
+        for v in g._succ[stack.pop()]:
+            if v not in zero and g._node[v]["kind"] == "add" and all(u in zero for u in g._pred[v]):
                 zero.add(v)
-                changed = True
+                stack.append(v)
     return zero
 
 
