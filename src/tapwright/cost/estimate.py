@@ -308,6 +308,12 @@ def estimate(g, device: str) -> Estimate:
                 other = max(x, y)
                 lut += int(round(lpb * other))
                 carry += int(round(cpb * other)) + cps
+        if getattr(prof, "slice_sums_in_fabric", False) and not getattr(prof, "tile_sums_in_fabric", True) \
+                and n.get("table") is None and soft_slices(prof, g, a, b, v):
+            # a slice left in LUTs is summed with the block's output by a carry-chain adder
+            # whose LUTs also form the slice's own product (profile slice_sums_in_fabric)
+            for terms, w in product_tile_sums(prof, a, b, product_coeff(n)):
+                soft_mult_adders.append(w)
         if getattr(prof, "tile_sums_in_fabric", True) and not (prof.regs is not None and prof.regs.cascade):
             # partial products summed in the fabric (devices.product_tile_sums): one carry-chain
             # adder per cut of the product, and with three or more terms at one cut a
