@@ -50,6 +50,7 @@ independent samples is exact (as for every FIR), which is the L1-norm bound.
 """
 from __future__ import annotations
 
+import heapq
 import itertools
 
 import networkx as nx
@@ -117,12 +118,12 @@ def eval_order(g) -> list:
     every loop must hold at least one delay; ``quant`` nodes inside loops have
     fixed formats and so also break the format recursion.
     """
-    h = nx.DiGraph()
-    h.add_nodes_from(g.nodes)
-    h.add_edges_from((u, v) for u, v, d in g.edges(data=True) if d["z"] == 0)
     try:
-        return list(nx.lexicographical_topological_sort(h, key=str))
+        return lex_order(g._node, ((u, v) for u, v, d in _edge_list(g) if d["z"] == 0))
     except nx.NetworkXUnfeasible:
+        h = nx.DiGraph()
+        h.add_nodes_from(g.nodes)
+        h.add_edges_from((u, v) for u, v, d in g.edges(data=True) if d["z"] == 0)
         cyc = nx.find_cycle(h)
         raise GraphError(f"delay-free loop through {[e[0] for e in cyc]}") from None
 
@@ -244,11 +245,9 @@ def propagate(g) -> nx.MultiDiGraph:
     else:
         # loops hold a fixed-format quant: cut the edges leaving those, then the
         # rest is a DAG whose order gives every operand's range before its user
-        h = nx.DiGraph()
-        h.add_nodes_from(g.nodes)
-        h.add_edges_from((u, v) for u, v in g.edges() if u not in fixed)
         try:
-            order = list(nx.lexicographical_topological_sort(h, key=str))
+            order = lex_order(g._node, ((u, v) for u, nbrs in g._succ.items() if u not in fixed
+                                        for v in nbrs))
         except nx.NetworkXUnfeasible:
             raise GraphError("a loop without a fixed-format quant node: its word length would grow "
                              "without bound") from None
@@ -390,14 +389,100 @@ def _condensed_order(g) -> list:
                 ready.append(w)
     if len(order) == len(indeg) and not any(v in succ[v] for v in succ):
         return [[v] for v in order]
-    dg = nx.DiGraph(g)
-    cond = nx.condensation(dg)
-    comps: dict = {}
-    for v, c in cond.graph["mapping"].items():
-        comps.setdefault(c, []).append(v)
-    first = {c: min(map(str, m)) for c, m in comps.items()}
-    return [sorted(comps[c], key=str)
-            for c in nx.lexicographical_topological_sort(cond, key=first.__getitem__)]
+    comps = [sorted(c, key=str) for c in strong_components(succ)]
+    where = {v: i for i, c in enumerate(comps) for v in c}
+    edges = ((where[u], where[v]) for u, nbrs in succ.items() for v in nbrs if where[u] != where[v])
+    first = [str(c[0]) for c in comps]
+    return [comps[i] for i in lex_order(range(len(comps)), edges, key=first.__getitem__)]
+
+
+def lex_order(nodes, edges, key=str) -> list:
+    """Topological order of ``nodes`` under ``edges`` ((u, v) pairs, repeats allowed),
+    smallest ``key`` first among the ready nodes, ties in the order of ``nodes``: the
+    order ``networkx.lexicographical_topological_sort`` gives on the same DiGraph,
+    written on plain dicts because building that DiGraph cost more than the sort
+    (a CIC chain's graphs are sorted a dozen times per candidate). Raises
+    ``networkx.NetworkXUnfeasible`` on a cycle."""
+    nodes = list(nodes)
+    succ = {v: {} for v in nodes}
+    for u, v in edges:
+        succ[u][v] = None
+    indeg = dict.fromkeys(nodes, 0)
+    for nbrs in succ.values():
+        for v in nbrs:
+            indeg[v] += 1
+    rank = {v: i for i, v in enumerate(nodes)}
+    ready = [(key(v), rank[v], v) for v in nodes if indeg[v] == 0]
+    heapq.heapify(ready)
+    out = []
+    while ready:
+        v = heapq.heappop(ready)[2]
+        out.append(v)
+        for w in succ[v]:
+            indeg[w] -= 1
+            if indeg[w] == 0:
+                heapq.heappush(ready, (key(w), rank[w], w))
+    if len(out) != len(nodes):
+        raise nx.NetworkXUnfeasible("graph contains a cycle")
+    return out
+
+
+def strong_components(succ) -> list:
+    """Strongly connected components of the graph with adjacency ``succ`` (node ->
+    successors), as sets: Tarjan's algorithm (R. Tarjan, "Depth-first search and linear
+    graph algorithms", SIAM J. Computing 1(2), 1972), iterative, on the adjacency dicts
+    (``networkx.strongly_connected_components`` needs a DiGraph built first)."""
+    index: dict = {}
+    low: dict = {}
+    on_stack: set = set()
+    stack: list = []
+    comps = []
+    counter = 0
+    for root in succ:
+        if root in index:
+            continue
+        index[root] = low[root] = counter
+        counter += 1
+        stack.append(root)
+        on_stack.add(root)
+        work = [(root, iter(succ[root]))]
+        while work:
+            v, it = work[-1]
+            for w in it:
+                if w not in index:
+                    index[w] = low[w] = counter
+                    counter += 1
+                    stack.append(w)
+                    on_stack.add(w)
+                    work.append((w, iter(succ[w])))
+                    break
+                if w in on_stack and index[w] < low[v]:
+                    low[v] = index[w]
+            else:
+                work.pop()
+                if work:
+                    u = work[-1][0]
+                    if low[v] < low[u]:
+                        low[u] = low[v]
+                if low[v] == index[v]:
+                    comp = set()
+                    while True:
+                        w = stack.pop()
+                        on_stack.discard(w)
+                        comp.add(w)
+                        if w == v:
+                            break
+                    comps.append(comp)
+    return comps
+
+
+def loop_order(g, members) -> list:
+    """Evaluation order inside one loop (a strongly connected component): its members
+    along the zero-delay edges between them, smallest name first."""
+    members = set(members)
+    return lex_order(sorted(members, key=str),
+                     ((u, v) for v in members for u, kd in g._pred[v].items() if u in members
+                      for e in kd.values() if e["z"] == 0))
 
 
 def rate_divisors(g) -> dict:

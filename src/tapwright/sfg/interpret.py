@@ -15,7 +15,7 @@ import networkx as nx
 import numpy as np
 
 from ..fixed.formats import overflow, requantize, shift_round
-from .graph import GraphError, operands, output_node
+from .graph import GraphError, condensed_order, loop_order, operands, output_node
 
 _OBJ_BITS = 60
 
@@ -166,10 +166,7 @@ def _fast_quant(f, shift, rounding, ovf):
 
 def _run_loop(g, comp, vals):
     """Sample-by-sample execution of one recursive component."""
-    sub = nx.DiGraph()
-    sub.add_nodes_from(comp)
-    sub.add_edges_from((u, v) for u, v, d in g.edges(data=True) if u in comp and v in comp and d["z"] == 0)
-    order = list(nx.lexicographical_topological_sort(sub, key=str))
+    order = loop_order(g, comp)
     ext = {u for v in comp for u, _ in operands(g, v) if u not in comp}
     lengths = {len(vals[u]) for u in ext}
     if len(lengths) != 1:
@@ -321,17 +318,12 @@ def run(g, x) -> np.ndarray:
     """Output samples of graph ``g`` for integer input ``x``."""
     x = np.asarray(x)
     vals = _Values()
-    dg = nx.DiGraph(g)
-    cond = nx.condensation(dg)
-    members = cond.graph["mapping"]
-    comps: dict[int, set] = {}
-    for v, c in members.items():
-        comps.setdefault(c, set()).add(v)
-    loops = {v for comp in comps.values() for v in comp
-             if len(comp) > 1 or dg.has_edge(v, v)}
-    for c in nx.lexicographical_topological_sort(cond, key=lambda c: min(map(str, comps[c]))):
-        comp = comps[c]
-        loop = len(comp) > 1 or any(dg.has_edge(v, v) for v in comp)
+    comps = condensed_order(g)
+    loops = {v for members in comps for v in members
+             if len(members) > 1 or v in g._succ[v]}
+    for members in comps:
+        comp = set(members)
+        loop = len(comp) > 1 or any(v in g._succ[v] for v in comp)
         if loop:
             _run_loop(g, comp, vals)
             continue

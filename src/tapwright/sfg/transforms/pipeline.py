@@ -40,7 +40,7 @@ import math
 
 import networkx as nx
 
-from ..graph import condensed_order, copy_graph, edge_list, eval_order, seal
+from ..graph import condensed_order, copy_graph, edge_list, eval_order, loop_order, seal
 
 
 def node_delay(g, v, delays) -> float:
@@ -215,11 +215,7 @@ def _topo_all(g):
     out = []
     for members in condensed_order(g):
         if len(members) > 1:
-            sub = nx.DiGraph()
-            sub.add_nodes_from(members)
-            sub.add_edges_from((u, v) for u, v, e in g.edges(data=True)
-                               if u in members and v in members and e["z"] == 0)
-            out.extend(nx.lexicographical_topological_sort(sub, key=str))
+            out.extend(loop_order(g, members))
         else:
             out.extend(members)
     return out
@@ -298,15 +294,13 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
             # a loop: one stage; arrival inside along its zero-delay edges
             ext = [(u, v, e) for v in members for u, _, e in h.in_edges(v, data=True) if u not in members]
             s0 = max((ready_at(u) for u, _, _ in ext), default=0)
-            sub = nx.DiGraph()
-            sub.add_nodes_from(members)
-            sub.add_edges_from((u, v) for u, v, e in h.edges(data=True)
-                               if u in members and v in members and e["z"] == 0)
+            inside = set(members)
             ain = {}
-            for v in nx.lexicographical_topological_sort(sub, key=str):
+            for v in loop_order(h, inside):
                 a = max((out_arr(u) for u, _, e in h.in_edges(v, data=True)
-                         if u not in members and ready_at(u) == s0 and e["z"] == 0), default=0.0)
-                a = max([a] + [ain[u] for u in sub.predecessors(v)])
+                         if u not in inside and ready_at(u) == s0 and e["z"] == 0), default=0.0)
+                a = max([a] + [ain[u] for u, kd in pred[v].items() if u in inside
+                               and any(e["z"] == 0 for e in kd.values())])
                 ain[v] = a + nd[v]
             if max(ain.values()) > period and any(
                     ready_at(u) == s0 and out_arr(u) > 0 for u, _, e in ext if e["z"] == 0):
