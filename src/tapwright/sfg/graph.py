@@ -119,7 +119,7 @@ def eval_order(g) -> list:
     fixed formats and so also break the format recursion.
     """
     try:
-        return lex_order(g._node, ((u, v) for u, v, d in _edge_list(g) if d["z"] == 0))
+        return lex_order(g._node, ((u, v) for u, v, d in edge_list(g) if d["z"] == 0))
     except nx.NetworkXUnfeasible:
         h = nx.DiGraph()
         h.add_nodes_from(g.nodes)

@@ -11,7 +11,6 @@ schedule, with every pipeline register, strobe and ``in_ready``, runs in
 """
 from __future__ import annotations
 
-import networkx as nx
 import numpy as np
 
 from ..fixed.formats import overflow, requantize, shift_round
@@ -323,8 +322,7 @@ def run(g, x) -> np.ndarray:
              if len(members) > 1 or v in g._succ[v]}
     for members in comps:
         comp = set(members)
-        loop = len(comp) > 1 or any(v in g._succ[v] for v in comp)
-        if loop:
+        if members[0] in loops:
             _run_loop(g, comp, vals)
             continue
         (v,) = comp

@@ -292,9 +292,9 @@ def pipeline(g, period: float, delays=unit_delays, *, register_output: bool = Tr
             stage[v], arr[v] = s0, a_in + t
         else:
             # a loop: one stage; arrival inside along its zero-delay edges
-            ext = [(u, v, e) for v in members for u, _, e in h.in_edges(v, data=True) if u not in members]
-            s0 = max((ready_at(u) for u, _, _ in ext), default=0)
             inside = set(members)
+            ext = [(u, v, e) for v in members for u, _, e in h.in_edges(v, data=True) if u not in inside]
+            s0 = max((ready_at(u) for u, _, _ in ext), default=0)
             ain = {}
             for v in loop_order(h, inside):
                 a = max((out_arr(u) for u, _, e in h.in_edges(v, data=True)
