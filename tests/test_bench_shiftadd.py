@@ -17,4 +17,7 @@ def test_bench_mcm_100x16(benchmark):
     benchmark.extra_info.update({"seconds_per_run": round(per_round, 3), "adders": g.adders, "lower_bound": lb,
                                  "csd_adders": csd_total(consts), "depth": g.depth, "depth_bound": dlb})
     assert lb <= g.adders < csd_total(consts)
-    assert per_round < 2.0
+    # the speed goal is a benchmark figure: asserted only when timing is on
+    # (--benchmark-enable), never in the plain test run, where a shared machine makes it flaky
+    if not benchmark.disabled:
+        assert per_round < 2.0, f"MCM took {per_round:.2f} s per run (goal under 2 s)"
