@@ -162,7 +162,9 @@ def render_plan(result: PlanResult) -> str:
     lines.append(f"hard-multiplier lower bound at {ex.cycles_per_sample} cycle(s) per sample: {ex.lower_bound}")
     if ex.recommended is not None:
         c = ex.recommended
-        lines.append(f"recommended: {c.label} - {c.estimate.dsp} {'multipliers' if spec.device == 'generic' else 'DSP blocks'}, "
+        n = c.estimate.dsp
+        unit = ("multiplier" if spec.device == "generic" else "DSP block") + ("" if n == 1 else "s")
+        lines.append(f"recommended: {c.label} - {n} {unit}, "
                      f"{c.estimate.lut} LUT, {c.estimate.carry} carry, {c.estimate.ff} FF, latency "
                      f"{c.estimate.latency} cycles")
         fit = part_fit(spec.device, c.estimate)
