@@ -78,6 +78,7 @@ def test_bench_every_example_on_ecp5(benchmark, tmp_path, name):
         t0 = time.perf_counter()
         estimate(realize(best.fixed, best.recipe, name=f"one{i}"), "ecp5")
         t_one = min(t_one, time.perf_counter() - t0)
+    nodes = sum(realize(c.fixed, c.recipe, name="size").number_of_nodes() for c in ex.candidates)
     build_design(res, structure=best.label, out=tmp_path / "d", force=True)
     t0 = time.perf_counter()
     out = synth_folder(tmp_path / "d", device="ecp5")
@@ -88,4 +89,8 @@ def test_bench_every_example_on_ecp5(benchmark, tmp_path, name):
                                  "one_synthesis_s": round(t_syn, 2),
                                  "ratio": round(t_syn / max(t_est, 1e-6), 1),
                                  "estimate_one_s": round(t_one, 4),
-                                 "ratio_same_design": round(t_syn / max(t_one, 1e-6), 1)})
+                                 "ratio_same_design": round(t_syn / max(t_one, 1e-6), 1),
+                                 # the size of the work: graph nodes over all candidates, and
+                                 # the time per node the goal allows (synthesis / 100 / nodes)
+                                 "graph_nodes": nodes,
+                                 "goal_us_per_node": round(t_syn / 100 / max(nodes, 1) * 1e6, 2)})
