@@ -387,3 +387,59 @@ clock = "48 MHz"
 [target.budget]
 dsp = 8
 """
+
+
+AUTO_LP = """
+name = "mains_lp"
+sample_rate = 48e3
+family = "auto"
+[[band]]
+edges = [0, 400]
+gain = 1.0
+ripple_db = 0.5
+[[band]]
+edges = [1000, 24000]
+gain = 0.0
+atten_db = 70
+[input]
+bits = 16
+frac = 15
+[target]
+device = "xc7"
+clock = 50e6
+[target.budget]
+dsp = {dsp}
+"""
+
+
+def test_auto_family_takes_the_other_family_when_none_of_the_first_fits():
+    """family = "auto" chooses by multiplications per output before any structure is
+    costed. An order-5 elliptic low-pass (scipy.signal.ellipord, the reference for the
+    order: 5 for 0.5 dB / 70 dB between 400 Hz and 1 kHz at 48 kHz) needs 13 products per
+    sample against over a hundred for the FIR, but its sections are not time-shared: with
+    two DSP blocks and 1041 cycles per sample no IIR structure fits, a folded FIR does."""
+    import dataclasses
+
+    from scipy import signal
+
+    from tapwright.design.plan import make_design
+    from tapwright.explore import explore_all
+
+    assert signal.ellipord(400, 1000, 0.5, 70, fs=48e3)[0] == 5   # SciPy as reference
+    tight = parse_spec_text(AUTO_LP.format(dsp=2))
+    first = make_design(tight)
+    assert first.family == "iir" and first.float_design.order == 5
+    assert not explore_all(tight, first.fixed, []).ok        # nothing of the first family fits
+    res = plan(tight)
+    assert res.ok and res.design.family == "fir"
+    assert res.recommended.feasible and res.recommended.estimate.dsp <= 2
+    why = res.design.why
+    assert why.startswith("FIR: no IIR structure fits the target") and "dsp" in why and "13 multiplications" in why
+    # with room for the sections the first choice stands
+    roomy = parse_spec_text(AUTO_LP.format(dsp=40))
+    res2 = plan(roomy)
+    assert res2.ok and res2.design.family == "iir" and res2.design.why == first.why
+    # a family set in the spec is never changed
+    fixed_iir = dataclasses.replace(tight, family="iir")
+    res3 = plan(fixed_iir)
+    assert res3.design.family == "iir" and not res3.ok

@@ -55,6 +55,7 @@ def plan(spec, *, design=None) -> PlanResult:
 
     from .design.chain import chain_applicable, plan_chains
 
+    given = design
     if design is None:
         try:
             design = make_design(spec)
@@ -64,7 +65,38 @@ def plan(spec, *, design=None) -> PlanResult:
     if spec.decimation >= 4 and chain_applicable(spec)[0]:
         chains = [c for c in plan_chains(spec) if c.ok]
     ex = explore_all(spec, design.fixed, chains)
+    if given is None and spec.family == "auto" and not ex.ok:
+        design, ex = _other_family(spec, design, ex, chains)
     return PlanResult(spec, design, ex, chains=chains)
+
+
+def _other_family(spec, design, ex, chains):
+    """``family = "auto"`` picks FIR or IIR by multiplications per output, before any
+    structure is costed. When no structure of that family fits the target and the budget,
+    the other family is designed and explored too, and taken when one of its structures
+    fits (the reason says both). Otherwise the first choice stands."""
+    import dataclasses
+
+    from .design.plan import DesignError, make_design
+
+    other = "fir" if design.family == "iir" else "iir"
+    if other == "iir" and spec.phase == "linear":
+        return design, ex
+    try:
+        alt = make_design(dataclasses.replace(spec, family=other))
+    except DesignError:
+        return design, ex
+    if not alt.ok:
+        return design, ex
+    alt_ex = explore_all(spec, alt.fixed, chains)
+    if not alt_ex.ok:
+        return design, ex
+    c = ex.closest
+    miss = f" (closest: {c.label}, {c.why})" if c is not None and c.why else ""
+    first, _, reason = design.why.partition(": ")
+    alt.why = (f"{other.upper()}: no {first} structure fits the target{miss} and an {other.upper()} one does; "
+               f"by multiplications per output alone the {first} came first: {reason}")
+    return alt, alt_ex
 
 
 # ----------------------------------------------------------------------------------------------
