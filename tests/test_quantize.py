@@ -5,6 +5,8 @@ import math
 import numpy as np
 import pytest
 from scipy import signal
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from tapwright.design import fir
 from tapwright.design.plan import DesignError, DesignPlan, magnitude, make_design
@@ -265,3 +267,16 @@ def test_iir_family_with_shaped_band_is_a_design_error():
     # auto falls back to FIR and says why
     plan = make_design(parse_spec_text(spec_text(bands, 'family = "auto"')))
     assert plan.family == "fir" and "shaped" in plan.why
+
+
+@settings(max_examples=400, deadline=None)
+@given(st.integers(-(1 << 80), 1 << 80), st.integers(0, 1 << 80))
+def test_bits_for_range_is_the_smallest_twos_complement_width(lo, span):
+    """The closed form against the definition (common practice: b signed bits hold
+    -2**(b-1) .. 2**(b-1) - 1), by search from one bit up."""
+    from tapwright.fixed.formats import bits_for_range
+    hi = lo + span
+    b = 1
+    while -(1 << (b - 1)) > lo or (1 << (b - 1)) - 1 < hi:
+        b += 1
+    assert bits_for_range(lo, hi) == b

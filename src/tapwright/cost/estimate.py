@@ -212,9 +212,9 @@ def pre_adders_in_blocks(g, prof, adders, hard) -> set:
         succ = list(g.successors(v))
         if not succ or not all(w in hard for w in succ):
             continue
-        if not wide_port and any(g.nodes[u]["kind"] == "mux" for u in g.predecessors(v)):
+        if not wide_port and any(g._node[u]["kind"] == "mux" for u in g.predecessors(v)):
             continue
-        if wide_port and any(width < product_coeff_bits(g.nodes[w]) for w in succ):
+        if wide_port and any(width < product_coeff_bits(g._node[w]) for w in succ):
             continue
         out.add(v)
     return out
@@ -244,17 +244,17 @@ def exact_post_adders(g, prof, m, hard, mult_ab) -> set:
     merged = merged_products(m)
     taken, used = set(), set()
     for w in sorted((v for _, role, v in m.adders if role == "tree"), key=str):
-        n = g.nodes[w]
+        n = g._node[w]
         ops = operands(g, w)
         if len(ops) != 2 or n["fmt"].bits > prof.regs.post_adder_bits or \
                 any(e["sign"] != 1 or e["z"] or e["pipe"] or
-                    e["shift"] + n["fmt"].frac != g.nodes[u]["fmt"].frac for u, e in ops):
+                    e["shift"] + n["fmt"].frac != g._node[u]["fmt"].frac for u, e in ops):
             continue
-        widths = [g.nodes[u]["fmt"].bits for u, _ in ops]
+        widths = [g._node[u]["fmt"].bits for u, _ in ops]
         if n["fmt"].bits < max(widths):
             continue
         for (p, _), wp in zip(ops, widths):
-            pn = g.nodes[p]
+            pn = g._node[p]
             if wp < max(widths) or p not in hard or p in merged or p in used \
                     or pn.get("table") is not None or sum(map(len, g._succ[p].values())) != 1 \
                     or m.zero_lsbs.get(p, 0) or mult_blocks(prof, *mult_ab[p]) != 1 \
@@ -278,12 +278,12 @@ def chain_post_adders(g, prof, m, hard, mult_ab, taken) -> tuple:
     C register (CREG). ``taken``: tree adders already packed. Returns ``(adders, ff)``."""
     chain, ff = set(), 0
     for v in sorted(hard - merged_products(m), key=str):
-        n = g.nodes[v]
+        n = g._node[v]
         if n.get("table") is not None or len(g._succ[v]) != 1 or m.zero_lsbs.get(v, 0):
             continue
         (w, kd), = g._succ[v].items()
         e = next(iter(kd.values()))
-        nw = g.nodes[w]
+        nw = g._node[w]
         if len(kd) != 1 or nw["kind"] != "add" or nw.get("role") != "tsum" or w in taken \
                 or w in chain or e["sign"] != 1 or e["z"] or e["pipe"] \
                 or nw["fmt"].bits > prof.regs.post_adder_bits or mult_blocks(prof, *mult_ab[v]) != 1:
@@ -291,11 +291,11 @@ def chain_post_adders(g, prof, m, hard, mult_ab, taken) -> tuple:
         chain.add(w)
     for w in chain:
         for u, kd in g._pred[w].items():
-            if g.nodes[u]["kind"] == "add" and u not in chain and any(f["z"] >= 1 for f in kd.values()):
-                ff += g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
+            if g._node[u]["kind"] == "add" and u not in chain and any(f["z"] >= 1 for f in kd.values()):
+                ff += g._node[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
         outs = [f for kd in g._succ[w].values() for f in kd.values()]
         if outs and all(f["z"] >= 1 or f["pipe"] >= 1 for f in outs):
-            ff += g.nodes[w]["fmt"].bits - m.zero_lsbs.get(w, 0)
+            ff += g._node[w]["fmt"].bits - m.zero_lsbs.get(w, 0)
     return chain, ff
 
 
@@ -328,7 +328,7 @@ def estimate(g, device: str) -> Estimate:
         merged.setdefault(kept, []).append(w)
     for a, b, v in m.mults:
         blocks = mult_blocks(prof, a, b)
-        n = g.nodes[v]
+        n = g._node[v]
         if blocks == 0:
             # fabric constant product: shifted partial products summed
             if n.get("table") is None:
@@ -410,7 +410,7 @@ def estimate(g, device: str) -> Estimate:
                 continue
             (w,) = ws
             if w in hard and p <= prof.regs.input_regs:
-                bits = g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
+                bits = g._node[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
                 ff -= p * bits
                 absorbed += p * bits
     # short sample-delay lines read only by hard products: the blocks' input registers
@@ -423,12 +423,12 @@ def estimate(g, device: str) -> Estimate:
                 zlines.setdefault(u, []).append((w, e["z"]))
         for u, readers in zlines.items():
             depth = max(z for _, z in readers)
-            ok = all(g.nodes[w]["kind"] == "mul" and mult_blocks(prof, g.nodes[u]["fmt"].bits,
-                                                                    product_coeff_bits(g.nodes[w])) >= 1
+            ok = all(g._node[w]["kind"] == "mul" and mult_blocks(prof, g._node[u]["fmt"].bits,
+                                                                    product_coeff_bits(g._node[w])) >= 1
                      for w, _ in readers)
             k = absorbed_registers(prof, input_stages=depth, has_reset=True)["input"]
             if ok and k >= depth:
-                ff -= depth * (g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0))
+                ff -= depth * (g._node[u]["fmt"].bits - m.zero_lsbs.get(u, 0))
     # pipeline chains nothing reads in between (one depth from a source tap) pack into
     # shift-register LUTs where the family has them (profile srl rule, xc7 SRLC32E;
     # probe test_xc7_delay_line_cells; the lowering's pipeline registers have no reset)
@@ -441,7 +441,7 @@ def estimate(g, device: str) -> Estimate:
         for (u, z), depths in chains.items():
             # a chain read at several depths packs segment by segment (each segment ends
             # at a tap)
-            bits = g.nodes[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
+            bits = g._node[u]["fmt"].bits - m.zero_lsbs.get(u, 0)
             prev = 0
             for p in sorted(depths):
                 seg = p - prev
@@ -458,7 +458,7 @@ def estimate(g, device: str) -> Estimate:
             if mult_blocks(prof, *mult_ab[v]) != 1:
                 continue
             for w in g.successors(v):
-                n = g.nodes[w]
+                n = g._node[w]
                 if n["kind"] == "add" and n.get("role") == "tree" and w not in taken \
                         and n["fmt"].bits <= prof.regs.post_adder_bits:
                     taken.add(w)
@@ -478,11 +478,11 @@ def estimate(g, device: str) -> Estimate:
     # 723 FDRE against 786 and 674)
     for w in taken:
         if all(e["pipe"] >= 1 for kd in g._succ[w].values() for e in kd.values()):
-            bits = g.nodes[w]["fmt"].bits - m.zero_lsbs.get(w, 0)
+            bits = g._node[w]["fmt"].bits - m.zero_lsbs.get(w, 0)
             ff -= bits
             absorbed += bits
     for w in acc_in_dsp:
-        ff -= g.nodes[w]["fmt"].bits
+        ff -= g._node[w]["fmt"].bits
     # adder trees fed by hard products: on some families synthesis compresses all but the
     # last adder of each tree into full-adder LUTs (profile field tree_compressor_lut_per_bit)
     # (none where the lowering keeps every tree sum as a carry chain of its own)
@@ -502,7 +502,7 @@ def estimate(g, device: str) -> Estimate:
         for comp_nodes in condensed_order(g):
             for v in comp_nodes:
                 if v in tree and (scope == "any" or all(
-                        u in hard or u in under or (scope == "products_and_accs" and g.nodes[u]["kind"] == "acc")
+                        u in hard or u in under or (scope == "products_and_accs" and g._node[u]["kind"] == "acc")
                         for u in g.predecessors(v))):
                     under.add(v)
         # a tree ends where its sum is registered: Yosys merges only adders joined
@@ -527,8 +527,8 @@ def estimate(g, device: str) -> Estimate:
             members.setdefault(r, []).append(v)
         for r, vs in members.items():
             leaves = [(u, v) for v in vs for u in g._pred[v] if u not in vs]
-            if any(g.nodes[u]["kind"] == "acc" for u, _ in leaves) and \
-                    all(g.nodes[u]["kind"] == "acc" or (not joined(u, v) and u not in hard)
+            if any(g._node[u]["kind"] == "acc" for u, _ in leaves) and \
+                    all(g._node[u]["kind"] == "acc" or (not joined(u, v) and u not in hard)
                         for u, v in leaves):
                 reg_roots.add(r)
     for width, role, v in m.adders:
@@ -537,7 +537,7 @@ def estimate(g, device: str) -> Estimate:
         if comp and est.dsp and v in under and v not in roots:
             r = root_of.get(v)
             if r in reg_roots:
-                lut += int(round(reg_tree * g.nodes[r]["fmt"].bits))
+                lut += int(round(reg_tree * g._node[r]["fmt"].bits))
             else:
                 lut += int(round(comp * width))
             continue
@@ -563,20 +563,20 @@ def estimate(g, device: str) -> Estimate:
             if n["kind"] != "quant" or n["rounding"] == "truncate":
                 continue
             (u, _), = operands(g, v)
-            shift = g.nodes[u]["fmt"].frac - n["fmt"].frac
+            shift = g._node[u]["fmt"].frac - n["fmt"].frac
             if shift <= 0:
                 continue
-            l, c = adder_cells(prof, g.nodes[u]["fmt"].bits - shift + 1)
-            fabric_sum = g.nodes[u]["kind"] == "add" and g.in_degree(u) >= 2 \
+            l, c = adder_cells(prof, g._node[u]["fmt"].bits - shift + 1)
+            fabric_sum = g._node[u]["kind"] == "add" and g.in_degree(u) >= 2 \
                 and u not in in_block and joined(u, v)
-            if fabric_sum and any(g.nodes[w]["kind"] == "add" and joined(w, u) for w in g._pred[u]):
+            if fabric_sum and any(g._node[w]["kind"] == "add" and joined(w, u) for w in g._pred[u]):
                 lut += l          # after a multi-level adder tree: a full adder (not probed)
                 carry += c
             elif n["rounding"] == "half_even":
                 carry += c
                 lut += -(-shift // 4)
             elif fabric_sum:
-                lut += adder_cells(prof, g.nodes[u]["fmt"].bits)[0]   # a row as wide as the sum
+                lut += adder_cells(prof, g._node[u]["fmt"].bits)[0]   # a row as wide as the sum
             else:
                 carry += c
     else:
@@ -588,7 +588,7 @@ def estimate(g, device: str) -> Estimate:
     for v, n in g._node.items():
         if n["kind"] == "quant" and n["overflow"] == "saturate":
             (u, _), = operands(g, v)
-            if g.nodes[u]["fmt"].bits > n["fmt"].bits + (g.nodes[u]["fmt"].frac - n["fmt"].frac):
+            if g._node[u]["fmt"].bits > n["fmt"].bits + (g._node[u]["fmt"].frac - n["fmt"].frac):
                 lut += n["fmt"].bits
     # large multiplexers on or near the longest path in the view of logic synthesis are
     # mapped for depth (profile mux_deepest_*, map_delays)
@@ -598,7 +598,7 @@ def estimate(g, device: str) -> Estimate:
             any(n >= prof.mux_deepest_min_inputs for _, n, _ in m.muxes):
         ratios = mux_path_ratios(g, *synthesis_view(prof, g, m, hard))
     for width, inputs, v in m.muxes:
-        r = g.nodes[v].get("mux_regs", 0)
+        r = g._node[v].get("mux_regs", 0)
         if not r:
             luts = _mux_luts(prof, width, inputs)
             share = depth_share(ratios[v], ramp) if v in ratios else 0.0
@@ -609,7 +609,7 @@ def estimate(g, device: str) -> Estimate:
         # registers inside (pipeline mux_regs): each level a row of smaller multiplexers
         short = getattr(prof, "mux_split_lut_per_input_bit", 0.0)
         split = 0
-        for _, k, groups in split_levels(int(g.nodes[v]["steps"]), r, inputs):
+        for _, k, groups in split_levels(int(g._node[v]["steps"]), r, inputs):
             # up to 4 inputs a level is one LUT level: the probes' figure holds
             split += groups * (int(round(short * (k - 1) * width)) if short and k > 4
                                else _mux_luts(prof, width, k))

@@ -31,14 +31,14 @@ def _wire_add(g, v) -> bool:
 def _quant_work(g, v) -> tuple:
     """``(rounds, saturates, compare_bits)`` of a quant node: a rounding adder, a clamp to
     the output range (comparators on the rounded word, then the select)."""
-    n = g.nodes[v]
+    n = g._node[v]
     ops = g._pred[v]
     u = next(iter(ops)) if ops else None
-    shift = (g.nodes[u]["fmt"].frac - n["fmt"].frac) if u is not None else 0
-    wide = u is not None and g.nodes[u]["fmt"].bits - shift > n["fmt"].bits
+    shift = (g._node[u]["fmt"].frac - n["fmt"].frac) if u is not None else 0
+    wide = u is not None and g._node[u]["fmt"].bits - shift > n["fmt"].bits
     rounds = shift > 0 and n["rounding"] != "truncate"
     saturates = wide and n["overflow"] == "saturate"
-    cmp_bits = g.nodes[u]["fmt"].bits - max(shift, 0) + 1 if u is not None else 0
+    cmp_bits = g._node[u]["fmt"].bits - max(shift, 0) + 1 if u is not None else 0
     return rounds, saturates, cmp_bits
 
 
@@ -67,7 +67,7 @@ def delay_function(device: str):
         # loads are spread out: the profile names the kinds of node that pay it)
         if not d.fanout_ns_per_doubling:
             return 0.0
-        if d.fanout_load_kinds is not None and g.nodes[v]["kind"] not in d.fanout_load_kinds:
+        if d.fanout_load_kinds is not None and g._node[v]["kind"] not in d.fanout_load_kinds:
             return 0.0
         worst = max((len(g._succ[u]) for u in g._pred[v]), default=1)
         return d.fanout_ns_per_doubling * math.log2(worst) if worst > 1 else 0.0
@@ -86,12 +86,12 @@ def delay_function(device: str):
             if n["kind"] != "mul" or _mul_free(n) or not g._pred[v]:
                 continue
             u = next(iter(g._pred[v]))
-            total += mult_blocks(prof, g.nodes[u]["fmt"].bits, product_coeff_bits(n))
+            total += mult_blocks(prof, g._node[u]["fmt"].bits, product_coeff_bits(n))
         spread_cache[g] = (key, total)
         return total
 
     def spread(g, v):
-        if not d.dsp_spread_ns or g.nodes[v]["kind"] != "mul" or _mul_free(g.nodes[v]):
+        if not d.dsp_spread_ns or g._node[v]["kind"] != "mul" or _mul_free(g._node[v]):
             return 0.0
         return d.dsp_spread_ns * max(0.0, math.sqrt(blocks_in(g)) - 1.0)
 
@@ -100,7 +100,7 @@ def delay_function(device: str):
         return t + max(fanout(g, v), spread(g, v)) if t > 0 else t
 
     def f0(g, v):
-        n = g.nodes[v]
+        n = g._node[v]
         k = n["kind"]
         if k == "mul":
             if _mul_free(n):
@@ -113,7 +113,7 @@ def delay_function(device: str):
                 from ..sfg.graph import operands
                 from .devices import product_soft_slices
                 (u, _), = operands(g, v)
-                a = g.nodes[u]["fmt"].bits
+                a = g._node[u]["fmt"].bits
                 b = product_coeff_bits(n)
                 blocks = mult_blocks(prof, a, b)
                 if blocks > 1:
@@ -162,7 +162,7 @@ def delay_function(device: str):
         """Delays of the ``regs + 1`` segments of multiplexer ``v`` when ``regs`` pipeline
         registers sit inside it (:func:`split_levels`: each segment a case on its share of
         the step counter's bits, the lowering's ``mux_regs``)."""
-        n = g.nodes[v]
+        n = g._node[v]
         k_in = max(2, prof.lut_inputs)
         return [(lut_levels(ports) + (math.ceil(math.log(b, k_in)) if b > 1 else 0))
                 * (d.lut_ns + d.route_ns)
@@ -190,7 +190,7 @@ def map_delay_function(device: str):
         # an operand that is a sum computed without a register in between: the carry chains
         # run side by side, so this one adds its entry and exit, not a second ripple
         for u, kd in g._pred[v].items():
-            n = g.nodes[u]
+            n = g._node[u]
             if n["kind"] == "quant" or (n["kind"] == "add" and len(g._pred[u]) >= 2):
                 if all(e["z"] == 0 and e["pipe"] == 0 for e in kd.values()):
                     return True
@@ -200,13 +200,13 @@ def map_delay_function(device: str):
         return md.adder_ns(w, chained=joined_sum(g, v))
 
     def f(g, v):
-        n = g.nodes[v]
+        n = g._node[v]
         k = n["kind"]
         if k == "mul":
             if _mul_free(n) or not g._pred[v]:
                 return 0.0
             u = next(iter(g._pred[v]))
-            a, b = g.nodes[u]["fmt"].bits, product_coeff_bits(n)
+            a, b = g._node[u]["fmt"].bits, product_coeff_bits(n)
             # a fabric product is a tree of shifted partial products: about one chain
             return 0.0 if mult_blocks(prof, a, b) else chain(g, v, a + b)
         if k == "add":

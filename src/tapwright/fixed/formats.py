@@ -57,10 +57,9 @@ def bits_for_range(lo: int, hi: int) -> int:
     lo, hi = int(lo), int(hi)
     if lo > hi:
         raise ValueError("empty range")
-    b = 1
-    while -(1 << (b - 1)) > lo or (1 << (b - 1)) - 1 < hi:
-        b += 1
-    return b
+    # b bits hold [-2**(b-1), 2**(b-1) - 1]: hi needs b - 1 >= hi.bit_length(), lo < 0 needs
+    # 2**(b-1) >= -lo, that is b - 1 >= (-lo - 1).bit_length() = (~lo).bit_length()
+    return 1 + max(hi.bit_length() if hi > 0 else 0, (~lo).bit_length() if lo < 0 else 0)
 
 
 def _is_object(x) -> bool:

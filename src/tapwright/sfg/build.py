@@ -81,7 +81,7 @@ def fir_direct(g, src, st: FirStage, *, stage: int, rounding: str, overflow: str
     """Direct form: a delay line of taps, one product per coefficient, an adder tree (or chain)."""
     e = _entry(g, src, stage)
     taps = [e]
-    g.nodes[e]["tap"] = 0
+    g._node[e]["tap"] = 0
     for k in range(1, st.ntaps):
         t = add_node(g, "add", name=f"s{stage}_t{k}", role="tap", tap=k, stage=stage)
         connect(g, taps[-1], t, z=1)
@@ -102,7 +102,7 @@ def fir_direct(g, src, st: FirStage, *, stage: int, rounding: str, overflow: str
         root = acc
     else:
         root = adder_tree(g, prods, stage=stage)
-    g.nodes[root]["exit"] = True
+    g._node[root]["exit"] = True
     return _finish(g, root, st, stage=stage, rounding=rounding, overflow=overflow)
 
 
@@ -138,7 +138,7 @@ def cic(g, src, st: CicStage, in_fmt: Fmt, *, stage: int, rounding: str, overflo
                      stage=stage, role="comb_out")
         connect(g, a, w)
         cur = w
-    g.nodes[cur]["exit"] = True
+    g._node[cur]["exit"] = True
     return _finish(g, cur, st, stage=stage, rounding=rounding, overflow=overflow, decim=False)
 
 
@@ -189,7 +189,7 @@ def sos(g, src, st: SosStage, in_fmt: Fmt, *, stage: int, rounding: str, overflo
         else:
             raise ValueError(f"unknown biquad form {form!r}")
         cur, f_in = y, s.state
-    g.nodes[cur]["exit"] = True
+    g._node[cur]["exit"] = True
     return _finish(g, cur, st, stage=stage, rounding=rounding, overflow=overflow)
 
 
@@ -215,15 +215,15 @@ def build(design: FixedDesign, *, name: str = "filter", fir_adder: str = "tree",
 
 
 def stage_nodes(g, stage: int):
-    return [v for v, s in g.nodes(data="stage") if s == stage]
+    return [v for v, d in g._node.items() if d.get("stage") == stage]   # hot path: no view
 
 
 def stage_region(g, stage: int):
     """(entry node, exit node, round node) of one stage."""
     nodes = stage_nodes(g, stage)
-    entry = next(v for v in nodes if g.nodes[v].get("role") == "entry")
-    exit_ = next(v for v in nodes if g.nodes[v].get("exit"))
-    rnd = next(v for v in nodes if g.nodes[v].get("role") == "round")
+    entry = next(v for v in nodes if g._node[v].get("role") == "entry")
+    exit_ = next(v for v in nodes if g._node[v].get("exit"))
+    rnd = next(v for v in nodes if g._node[v].get("role") == "round")
     return entry, exit_, rnd
 
 

@@ -146,7 +146,7 @@ class _Net(NetlistWalk):
         self._reg_unit: dict = {}
         self._n = 0
         for v in self.order:
-            self.width[self.val[v]] = g.nodes[v]["fmt"].bits
+            self.width[self.val[v]] = g._node[v]["fmt"].bits
         self._walk_init()
         for v in self.order:
             self._node(v)
@@ -267,7 +267,7 @@ class _Net(NetlistWalk):
     # ---------------------------------------------------------------- nodes (as lower._node)
     def _node(self, v):
         g = self.g
-        n = g.nodes[v]
+        n = g._node[v]
         k = n["kind"]
         out = self.val[v]
         bits = n["fmt"].bits
@@ -303,7 +303,7 @@ class _Net(NetlistWalk):
             terms, lo, hi = [], 0, 0
             for u, e in ops:
                 a = self.operand(v, u, e)
-                s = e["shift"] + fr - g.nodes[u]["fmt"].frac
+                s = e["shift"] + fr - g._node[u]["fmt"].frac
                 if s < 0:
                     raise GraphError(f"adder {v}: operand {u} would need a right shift ({s})")
                 alo, ahi = self._wrange(a)
@@ -337,7 +337,7 @@ class _Net(NetlistWalk):
                 elif p in byport:
                     u, e = byport[p]
                     a = self.operand(v, u, e)
-                    s = fr - g.nodes[u]["fmt"].frac
+                    s = fr - g._node[u]["fmt"].frac
                     alo, ahi = self._wrange(a)
                     lo, hi = min(lo, alo << s), max(hi, ahi << s)
                     srcs[p] = f"({a} << {s})" if s else a
@@ -370,9 +370,9 @@ class _Net(NetlistWalk):
 
     def _quant(self, v, u, a, out):
         g = self.g
-        n = g.nodes[v]
+        n = g._node[v]
         f = n["fmt"]
-        shift = g.nodes[u]["fmt"].frac - f.frac
+        shift = g._node[u]["fmt"].frac - f.frac
         rnd = n["rounding"]
         emit = self.comb_nodes.append
         alo, ahi = self._wrange(a)
@@ -397,7 +397,7 @@ class _Net(NetlistWalk):
             expr = a
             rlo, rhi = alo, ahi
         if n["overflow"] == "saturate":
-            lo_u, hi_u = g.nodes[u]["range"]
+            lo_u, hi_u = g._node[u]["range"]
             rl, rh = round_scalar(lo_u, shift, rnd), round_scalar(hi_u, shift, rnd)
             if rl < f.lo or rh > f.hi:
                 r = self._fresh("r")
@@ -496,7 +496,7 @@ class CycleModel:
         self.decimation = int(g.graph.get("decimation", 1))
         self.phase = int(g.graph.get("phase", 0))
         self.in_fmt = g.graph["in_fmt"]
-        self.out_bits = g.nodes[net.out]["fmt"].bits
+        self.out_bits = g._node[net.out]["fmt"].bits
         self._fns: dict = {}
         self.source = self._source(())
 

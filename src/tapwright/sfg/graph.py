@@ -133,7 +133,7 @@ def is_recursive(g) -> bool:
 
 
 def _range_of(g, v, ranges):
-    n = g.nodes[v]
+    n = g._node[v]
     k = n["kind"]
     if k == "input":
         f = n["fmt"]
@@ -236,10 +236,10 @@ def propagate(g) -> nx.MultiDiGraph:
     loops = {v for comp in comps if len(comp) > 1 for v in comp}
     loops |= {v for comp in comps if len(comp) == 1 for v in comp if g.has_edge(v, v)}
     for v in g.nodes:
-        if g.nodes[v]["kind"] == "quant":
-            g.nodes[v]["in_loop"] = v in loops
+        if g._node[v]["kind"] == "quant":
+            g._node[v]["in_loop"] = v in loops
     ranges: dict = {}
-    fixed = {v for v in loops if g.nodes[v]["kind"] == "quant"}
+    fixed = {v for v in loops if g._node[v]["kind"] == "quant"}
     if not loops:
         order = [comp[0] for comp in comps]
     else:
@@ -258,7 +258,7 @@ def propagate(g) -> nx.MultiDiGraph:
             continue
         ranges[v] = _range_of(g, v, ranges)
     for v, (lo, hi, fr) in ranges.items():
-        n = g.nodes[v]
+        n = g._node[v]
         n["range"] = (int(lo), int(hi))
         if n["kind"] in ("quant", "input"):
             continue
@@ -489,7 +489,7 @@ def rate_divisors(g) -> dict:
     """Rate of every node as a divisor of the input rate (product of decimators before it)."""
     rd = {}
     for v in eval_order_all(g):
-        n = g.nodes[v]
+        n = g._node[v]
         ins = [rd[u] for u, _ in operands(g, v) if u in rd]
         r = max(ins) if ins else 1
         if n["kind"] == "decim":

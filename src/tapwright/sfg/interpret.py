@@ -29,7 +29,7 @@ def _delayed(a: np.ndarray, z: int) -> np.ndarray:
 
 
 def _wide(g, v) -> bool:
-    f = g.nodes[v].get("fmt")
+    f = g._node[v].get("fmt")
     return f is not None and f.bits > _OBJ_BITS
 
 
@@ -40,7 +40,7 @@ def _as(a: np.ndarray, obj: bool) -> np.ndarray:
 
 
 def _vec(g, v, vals):
-    n = g.nodes[v]
+    n = g._node[v]
     k = n["kind"]
     ops = operands(g, v)
     obj = _wide(g, v) or any(vals[u] is not None and vals[u].dtype == object for u, _ in ops)
@@ -58,7 +58,7 @@ def _vec(g, v, vals):
     if k in ("output", "decim", "mul", "quant"):
         (u, d), = ops
         a = _as(_delayed(vals[u], d["z"]), obj)
-        ufr = g.nodes[u]["fmt"].frac
+        ufr = g._node[u]["fmt"].frac
         if k == "output":
             return a
         if k == "decim":
@@ -71,7 +71,7 @@ def _vec(g, v, vals):
         acc = None
         for u, d in ops:
             a = _as(_delayed(vals[u], d["z"]), obj)
-            s = d["shift"] + fr - g.nodes[u]["fmt"].frac
+            s = d["shift"] + fr - g._node[u]["fmt"].frac
             if s:
                 a = a << s
             if d["sign"] < 0:
@@ -83,7 +83,7 @@ def _vec(g, v, vals):
 
 def _at_step(g, v, step, vals, obj):
     """Value of a time-shared cone node at one schedule step, over all iterations."""
-    n = g.nodes[v]
+    n = g._node[v]
     k = n["kind"]
     fr = n["fmt"].frac
     if k == "mux":
@@ -94,7 +94,7 @@ def _at_step(g, v, step, vals, obj):
             return _as(np.zeros(len(vals[u0]), dtype=np.int64), obj)
         u, d = next((u, d) for u, d in ops if d["port"] == port)
         a = _as(_delayed(vals[u], d["z"]), obj)
-        s = fr - g.nodes[u]["fmt"].frac
+        s = fr - g._node[u]["fmt"].frac
         return a << s if s else a
     if k == "mul":
         (u, _), = operands(g, v)
@@ -105,7 +105,7 @@ def _at_step(g, v, step, vals, obj):
         acc = None
         for u, d in operands(g, v):
             a = _at_step(g, u, step, vals, obj)
-            s = d["shift"] + fr - g.nodes[u]["fmt"].frac
+            s = d["shift"] + fr - g._node[u]["fmt"].frac
             if s:
                 a = a << s
             if d["sign"] < 0:
@@ -116,14 +116,14 @@ def _at_step(g, v, step, vals, obj):
 
 
 def _scalar_step(g, v, ops, get):
-    n = g.nodes[v]
+    n = g._node[v]
     k = n["kind"]
     if k == "add":
         fr = n["fmt"].frac
         acc = 0
         for u, d in ops:
             a = get(u, d["z"])
-            s = d["shift"] + fr - g.nodes[u]["fmt"].frac
+            s = d["shift"] + fr - g._node[u]["fmt"].frac
             a = a << s
             acc += -a if d["sign"] < 0 else a
         return acc
@@ -133,7 +133,7 @@ def _scalar_step(g, v, ops, get):
         return a * int(n["coeff"])
     if k == "quant":
         f = n["fmt"]
-        a = int(shift_round(np.array([a], dtype=object), g.nodes[u]["fmt"].frac - f.frac, n["rounding"])[0])
+        a = int(shift_round(np.array([a], dtype=object), g._node[u]["fmt"].frac - f.frac, n["rounding"])[0])
         return int(overflow(np.array([a], dtype=object), f.bits, n["overflow"])[0])
     if k == "output":
         return a
@@ -176,14 +176,14 @@ def _run_loop(g, comp, vals):
     plan = []
     for v in order:
         ops = operands(g, v)
-        nd = g.nodes[v]
+        nd = g._node[v]
         if nd["kind"] == "quant":
             (u, d), = ops
-            qf = _fast_quant(nd["fmt"], g.nodes[u]["fmt"].frac - nd["fmt"].frac, nd["rounding"], nd["overflow"])
+            qf = _fast_quant(nd["fmt"], g._node[u]["fmt"].frac - nd["fmt"].frac, nd["rounding"], nd["overflow"])
             plan.append((v, "q", [(u, d["z"], 0, 1)], qf))
         elif nd["kind"] == "add":
             fr = nd["fmt"].frac
-            terms = [(u, d["z"], d["shift"] + fr - g.nodes[u]["fmt"].frac, d["sign"]) for u, d in ops]
+            terms = [(u, d["z"], d["shift"] + fr - g._node[u]["fmt"].frac, d["sign"]) for u, d in ops]
             plan.append((v, "a", terms, None))
         elif nd["kind"] == "mul":
             (u, d), = ops
@@ -276,7 +276,7 @@ def _evaluate(form, vals):
 
 def _form_of(g, v, vals, loops):
     """The linear form of a plain multiply or add node, or None when it must run as arrays."""
-    n = g.nodes[v]
+    n = g._node[v]
     k = n["kind"]
     if v in loops or k not in ("add", "mul") or (k == "mul" and n.get("table") is not None):
         return None
@@ -299,7 +299,7 @@ def _form_of(g, v, vals, loops):
         if k == "mul":
             w = int(n["coeff"])
         else:
-            s = d["shift"] + fr - g.nodes[u]["fmt"].frac
+            s = d["shift"] + fr - g._node[u]["fmt"].frac
             if s < 0:
                 return None
             w = d["sign"] * (1 << s)
@@ -326,7 +326,7 @@ def run(g, x) -> np.ndarray:
             _run_loop(g, comp, vals)
             continue
         (v,) = comp
-        if g.nodes[v]["kind"] == "input":
+        if g._node[v]["kind"] == "input":
             vals[v] = x.astype(object) if x.dtype == object else x.astype(np.int64)
             continue
         form = _form_of(g, v, vals, loops)

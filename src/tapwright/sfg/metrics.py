@@ -114,7 +114,7 @@ def _zero_lsbs(g) -> dict:
     tz: dict = {}
     for comp in condensed_order(g):
         for v in comp:
-            n = g.nodes[v]
+            n = g._node[v]
             k = n["kind"]
             ops = operands(g, v)
             if len(comp) > 1 or k in ("input", "acc") or not ops or any(u not in tz for u, _ in ops):
@@ -127,7 +127,7 @@ def _zero_lsbs(g) -> dict:
                 cz = min(((c & -c).bit_length() - 1) if c else 64 for c in cs)
                 tz[v] = tz[u] + cz
             elif k in ("add", "mux"):
-                vals = [tz[u] + d["shift"] + fr - g.nodes[u]["fmt"].frac for u, d in ops]
+                vals = [tz[u] + d["shift"] + fr - g._node[u]["fmt"].frac for u, d in ops]
                 if k == "mux" and n.get("zero_port") is not None:
                     vals.append(64)
                 tz[v] = max(0, min(vals))
@@ -209,7 +209,7 @@ def measure(g, delays=unit_delays) -> Metrics:
                     m.shared_mults[v] = shared[key]
                     continue
                 shared[key] = v
-            m.mults.append((g.nodes[u]["fmt"].bits, product_coeff_bits(n), v))
+            m.mults.append((g._node[u]["fmt"].bits, product_coeff_bits(n), v))
         elif k == "add":
             ops = operands(g, v)
             if not ops:
@@ -231,9 +231,9 @@ def measure(g, delays=unit_delays) -> Metrics:
             m.acc_bits += w
         elif k == "quant":
             (u, _), = operands(g, v)
-            shift = g.nodes[u]["fmt"].frac - n["fmt"].frac
+            shift = g._node[u]["fmt"].frac - n["fmt"].frac
             if shift > 0 and n["rounding"] != "truncate":
-                m.round_adders.append(g.nodes[u]["fmt"].bits - shift + 1)
+                m.round_adders.append(g._node[u]["fmt"].bits - shift + 1)
     for v, n in g._node.items():
         if n["kind"] == "mul" and n.get("table") is not None:
             m.tables.append((len(n["table"]), _coeff_bits(n)))
@@ -249,25 +249,25 @@ def measure(g, delays=unit_delays) -> Metrics:
             zmax[u] = max(zmax[u], e["z"])
         if e["pipe"]:
             pmax[u, e["z"]] = max(pmax[u, e["z"]], e["pipe"])
-        if g.nodes[v]["kind"] == "mux":
+        if g._node[v]["kind"] == "mux":
             captured.add(u)
     tz = zero_lsbs(g)
     for u, z in zmax.items():
-        w = g.nodes[u]["fmt"].bits - tz.get(u, 0)
+        w = g._node[u]["fmt"].bits - tz.get(u, 0)
         extra = 1 if u in captured else 0
         m.zreg_bits += (z + extra) * w
         m.delay_elements += z + extra
     for u in captured:
         if u not in zmax:
-            m.zreg_bits += g.nodes[u]["fmt"].bits - tz.get(u, 0)
+            m.zreg_bits += g._node[u]["fmt"].bits - tz.get(u, 0)
             m.delay_elements += 1
     for (u, _), p in pmax.items():
-        w = g.nodes[u]["fmt"].bits - tz.get(u, 0)
+        w = g._node[u]["fmt"].bits - tz.get(u, 0)
         m.pipe_bits += p * w
-        r = g.nodes[u].get("mux_regs", 0)
+        r = g._node[u].get("mux_regs", 0)
         if r:
             # the first r registers sit inside the multiplexer, one word per group
-            m.pipe_bits += sum(n - 1 for _, _, n in split_levels(int(g.nodes[u]["steps"]), r)[:-1]) * w
+            m.pipe_bits += sum(n - 1 for _, _, n in split_levels(int(g._node[u]["steps"]), r)[:-1]) * w
     m.zero_lsbs = tz
     m.latency = latency(g)
     if m.fold > 1:

@@ -15,7 +15,7 @@ _IN = ("in",)
 
 
 def _mux_steps(g, v) -> int:
-    n = g.nodes[v]
+    n = g._node[v]
     return int(n.get("steps", len(n["select"])))
 
 
@@ -44,7 +44,7 @@ def timing_of(g) -> dict:
         for v in order:
             if v in tag:
                 continue
-            n = g.nodes[v]
+            n = g._node[v]
             k = n["kind"]
             if k == "input":
                 tag[v] = ("s", _IN, 0)
@@ -80,7 +80,7 @@ def timing_of(g) -> dict:
         raise GraphError(f"nodes not reached from the input: {sorted(map(str, missing))[:5]}")
     # consistency: every operand agrees
     for v in order:
-        k = g.nodes[v]["kind"]
+        k = g._node[v]["kind"]
         if k == "input":
             continue
         seen = set()
@@ -132,7 +132,7 @@ class NetlistWalk:
             if n["kind"] == "mux":
                 self._cone_base[t[1]] = min(self._cone_base.get(t[1], t[2]), t[2])
         for u, v, e in g.edges(data=True):
-            need = e["z"] + 1 if g.nodes[v]["kind"] == "mux" else e["z"]
+            need = e["z"] + 1 if g._node[v]["kind"] == "mux" else e["z"]
             if need:
                 self._line_len[u] = max(self._line_len.get(u, 0), need)
 

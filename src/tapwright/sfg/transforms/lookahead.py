@@ -387,7 +387,7 @@ def lookahead_sos(g, src, sections, *, stage: int, rounding: str):
             connect(g, m, acc, sign=-1)
         connect(g, acc, y)
         for v in set(g.nodes) - before:
-            g.nodes[v]["section"] = i
+            g._node[v]["section"] = i
         cur = y
     return cur
 

@@ -44,7 +44,7 @@ from ..graph import condensed_order, copy_graph, edge_list, eval_order, loop_ord
 
 
 def node_delay(g, v, delays) -> float:
-    d = g.nodes[v]
+    d = g._node[v]
     if "t" in d:
         return float(d["t"])
     return float(delays(g, v)) if delays else 1.0
@@ -68,7 +68,7 @@ def node_delays(g, delays) -> dict:
 
 def unit_delays(g, v) -> float:
     """One unit per multiply, adder, rounding or multiplexer; wiring is free."""
-    d = g.nodes[v]
+    d = g._node[v]
     k = d["kind"]
     if k == "mul":
         c = d.get("coeff")
@@ -173,7 +173,7 @@ def _split_choice(g, v, t, period, delays):
     seg = getattr(delays, "mux_segments", None)
     if seg is None or t <= period:
         return None
-    n = g.nodes[v]
+    n = g._node[v]
     steps = int(n.get("steps", len(n.get("select") or ())))
     best = None
     for r in range(1, max(1, (steps - 1).bit_length())):
@@ -206,7 +206,7 @@ def stages(g) -> dict:
         if nodes[v]["kind"] == "acc":
             # a time-shared accumulator: steps 0..K-1 run in the K cycles after
             # the strobe's capture edge; the full sum is visible K+1 cycles on
-            st[v] += int(g.nodes[v]["steps"]) + 1
+            st[v] += int(g._node[v]["steps"]) + 1
     return st
 
 

@@ -45,7 +45,7 @@ def _stage_kind(g, s):
 
 
 def _is_direct(g, s):
-    return any(g.nodes[v].get("role") == "tap" for v in stage_nodes(g, s)) or \
+    return any(g._node[v].get("role") == "tap" for v in stage_nodes(g, s)) or \
         (_stage_taps(g, s) == 1)
 
 
@@ -56,7 +56,7 @@ def _stage_taps(g, s):
 def _remove_linear_part(g, s, keep=()):
     """Delete the stage's products and adders (not entry/round/decim/taps in ``keep``)."""
     for v in list(stage_nodes(g, s)):
-        role = g.nodes[v].get("role")
+        role = g._node[v].get("role")
         if role in ("tree", "chain", "mul", "preadd", "fanout", "tsum") and v not in keep:
             g.remove_node(v)
 
@@ -65,25 +65,25 @@ def _products_to_tree(g, s, prods, rnd):
     """Sum ``prods`` [(node, sign)] into the stage's round node."""
     if not prods:
         # all coefficients zero: a constant zero is a product by zero of the entry
-        entry = next(v for v in stage_nodes(g, s) if g.nodes[v].get("role") == "entry")
+        entry = next(v for v in stage_nodes(g, s) if g._node[v].get("role") == "entry")
         m = add_node(g, "mul", coeff=0, coeff_frac=g.graph["stages"][s].coeff_frac, role="mul", tap=0, stage=s)
         connect(g, entry, m)
         prods = [(m, 1)]
     root = adder_tree(g, prods, stage=s)
     for u in list(g.predecessors(rnd)):
         g.remove_edges_from([(u, rnd, k) for k in list(g[u][rnd])])
-    g.nodes[root]["exit"] = True
+    g._node[root]["exit"] = True
     connect(g, root, rnd)
     return root
 
 
 def _clear_exit(g, s):
     for v in stage_nodes(g, s):
-        g.nodes[v].pop("exit", None)
+        g._node[v].pop("exit", None)
 
 
 def _round_node(g, s):
-    return next(v for v in stage_nodes(g, s) if g.nodes[v].get("role") == "round")
+    return next(v for v in stage_nodes(g, s) if g._node[v].get("role") == "round")
 
 
 def _finalize(g, structure):
@@ -116,7 +116,7 @@ def transpose(g, stages=None):
         # former fan-out (a wire when it had one consumer)
         rename = {v: f"{v}_T" for v in region}
         for v in region:
-            d = g.nodes[v]
+            d = g._node[v]
             if d["kind"] == "mul":
                 h.add_node(rename[v], kind="mul", coeff=d["coeff"], coeff_frac=d["coeff_frac"], role="mul",
                            tap=d.get("tap"), stage=s)

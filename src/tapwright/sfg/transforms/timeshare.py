@@ -36,7 +36,7 @@ from ..graph import add_node, connect, copy_graph, operands, propagate
 
 
 def _is_wire(g, v) -> bool:
-    d = g.nodes[v]
+    d = g._node[v]
     if d["kind"] != "add" or g.in_degree(v) != 1 or d.get("role") == "entry":
         return False
     (_, e), = operands(g, v)
@@ -72,19 +72,19 @@ def product_terms(g, s):
     """Products of FIR stage ``s``: list of dicts with coeff, operands [(root, z)], sign."""
     terms = []
     memo: dict = {}
-    for m in sorted((v for v in stage_nodes(g, s) if g.nodes[v].get("role") == "mul"),
-                    key=lambda v: g.nodes[v].get("tap", 0)):
-        c = int(g.nodes[m]["coeff"])
+    for m in sorted((v for v in stage_nodes(g, s) if g._node[v].get("role") == "mul"),
+                    key=lambda v: g._node[v].get("tap", 0)):
+        c = int(g._node[m]["coeff"])
         if c == 0:
             continue
         (u, e), = operands(g, m)
-        if g.nodes[u].get("role") == "preadd":
+        if g._node[u].get("role") == "preadd":
             (a, ea), (b, eb) = operands(g, u)
             ra = resolve(g, a, ea["z"] + e["z"], memo)
             rb = resolve(g, b, eb["z"] + e["z"], memo)
-            terms.append({"coeff": c, "ops": [ra, rb], "sign": eb["sign"], "tap": g.nodes[m].get("tap", 0)})
+            terms.append({"coeff": c, "ops": [ra, rb], "sign": eb["sign"], "tap": g._node[m].get("tap", 0)})
         else:
-            terms.append({"coeff": c, "ops": [resolve(g, u, e["z"], memo)], "sign": 1, "tap": g.nodes[m].get("tap", 0)})
+            terms.append({"coeff": c, "ops": [resolve(g, u, e["z"], memo)], "sign": 1, "tap": g._node[m].get("tap", 0)})
     return terms
 
 
