@@ -6,6 +6,7 @@ design.json fields, and the bit-true model recomputed from design.json alone.
 """
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import subprocess
@@ -14,9 +15,11 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from scipy import signal
 
 from tapwright.cli import main
-from tapwright.explore import explore, products_lower_bound
+from tapwright.design.plan import make_design
+from tapwright.explore import explore, explore_all, products_lower_bound
 from tapwright.fixed import reference
 from tapwright.plan import plan
 from tapwright.spec import parse_spec_text
@@ -136,7 +139,6 @@ def test_dsp_lower_bound_reached(tmp_path, spec_kw):
     T = min(T, len({v for v in c if v != 0 and (abs(v) & (abs(v) - 1)) != 0}))
     assert lb == math.ceil(T / C)
     # tighten the budget to the bound: the explorer must still find a candidate at it
-    import dataclasses
     from tapwright.spec import Budget
     tight = dataclasses.replace(spec, budget=Budget(dsp=lb))
     ex = explore(r.design.fixed, tight)
@@ -315,8 +317,6 @@ def test_sheet_and_report_say_where_the_pipeline_registers_are(tmp_path):
     """design.json "pipeline" and the report line: a folded ECP5 design at 100 MHz has
     registers inside its operand multiplexers and one product registered in front of its
     accumulator; an unpipelined one has no period (strict JSON: no Infinity)."""
-    import dataclasses
-
     from tapwright.build import build_design
 
     root = Path(__file__).parent.parent
@@ -418,13 +418,6 @@ def test_auto_family_takes_the_other_family_when_none_of_the_first_fits():
     order: 5 for 0.5 dB / 70 dB between 400 Hz and 1 kHz at 48 kHz) needs 13 products per
     sample against over a hundred for the FIR, but its sections are not time-shared: with
     two DSP blocks and 1041 cycles per sample no IIR structure fits, a folded FIR does."""
-    import dataclasses
-
-    from scipy import signal
-
-    from tapwright.design.plan import make_design
-    from tapwright.explore import explore_all
-
     assert signal.ellipord(400, 1000, 0.5, 70, fs=48e3)[0] == 5   # SciPy as reference
     tight = parse_spec_text(AUTO_LP.format(dsp=2))
     first = make_design(tight)

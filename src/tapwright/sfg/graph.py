@@ -235,9 +235,9 @@ def propagate(g) -> nx.MultiDiGraph:
     comps = condensed_order(g)
     loops = {v for comp in comps if len(comp) > 1 for v in comp}
     loops |= {v for comp in comps if len(comp) == 1 for v in comp if g.has_edge(v, v)}
-    for v in g.nodes:
-        if g._node[v]["kind"] == "quant":
-            g._node[v]["in_loop"] = v in loops
+    for v, n in g._node.items():
+        if n["kind"] == "quant":
+            n["in_loop"] = v in loops
     ranges: dict = {}
     fixed = {v for v in loops if g._node[v]["kind"] == "quant"}
     if not loops:
