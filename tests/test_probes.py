@@ -944,3 +944,22 @@ def test_ecp5_tree_sums_are_kept_as_carry_chains(tmp_path):
     assert r["dsp"] == e.dsp == 13
     assert r["lut"] < r["carry"] / 2          # chains, not compressor rows
     assert abs((e.lut + e.carry) / (r["lut"] + r["carry"]) - 1) <= 0.20
+
+
+def test_ecp5_carry_cells_take_two_lut_sites_in_place_and_route(tmp_path):
+    """A CCU2C fills both LUT4 sites of an ECP5 slice: nextpnr-ecp5 (0.11, measured here on
+    2026-12-04) places a 64-bit registered adder (33 CCU2C, no LUT4) on 72 TRELLIS_COMB
+    sites. part_use (the 'fits in part X' line and the biggest-part check) counts each carry
+    cell as ``carry_lut_sites`` LUTs, so its LUT figure is what place and route uses."""
+    from tapwright.synth.pnr import place_and_route
+
+    r = syn(tmp_path, AdderProbe(64), "ecp5", netlist_out="n.json")
+    assert (r["lut"], r["carry"]) == (0, 33)
+    p = place_and_route(tmp_path / "ecp5_p" / "n.json", "ecp5", workdir=tmp_path / "pnr", clock_mhz=100)
+    sites = p["utilization"]["TRELLIS_COMB"]["used"]
+    prof = dv.get_profile("ecp5")
+    counted = r["lut"] + prof.carry_lut_sites * r["carry"]
+    assert counted <= sites <= counted + 8, (sites, counted)   # 72: 66 for the chain, 6 more
+    part = prof.parts[0]
+    est = type("E", (), {"dsp": 0, "lut": r["lut"], "carry": r["carry"], "ff": r["ff"]})()
+    assert dv.part_use(prof, part, est)["lut"] == pytest.approx(66 / part.lut)

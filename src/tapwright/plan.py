@@ -198,7 +198,7 @@ def render_plan(result: PlanResult) -> str:
         unit = ("multiplier" if spec.device == "generic" else "DSP block") + ("" if n == 1 else "s")
         lines.append(f"recommended: {c.label} - {n} {unit}, "
                      f"{c.estimate.lut} LUT, {c.estimate.carry} carry, {c.estimate.ff} FF, latency "
-                     f"{c.estimate.latency} cycles")
+                     f"{c.estimate.latency} cycle{'' if c.estimate.latency == 1 else 's'}")
         fit = part_fit(spec.device, c.estimate)
         if fit:
             lines.append(fit)

